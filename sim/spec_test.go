@@ -1,0 +1,100 @@
+package sim
+
+import (
+	"math"
+	"os"
+	"strings"
+	"testing"
+)
+
+func TestDefaultSpecValid(t *testing.T) {
+	if err := DefaultSpec().Validate(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func TestParseSpecOverridesAndRejects(t *testing.T) {
+	s, err := ParseSpec(strings.NewReader("name = \"x\"\n[loop]\nturns = 1\n[capacitor]\ntravel = \"stops\"\nspan_turns = 12\nmin_pf = 5\nmax_pf = 1000\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.Loop.Turns != 1 || s.Capacitor.SpanTurns != 12 || s.Loop.DiameterM != 2.3 {
+		t.Errorf("override not applied over the defaults: %+v", s.Loop)
+	}
+	_, err = ParseSpec(strings.NewReader("[loop]\nturnz = 2\n"))
+	if err == nil || !strings.Contains(err.Error(), "loop.turnz") {
+		t.Errorf("unknown key not reported: %v", err)
+	}
+	_, err = ParseSpec(strings.NewReader("[loop]\nturns = 9\n[drive]\nmicrosteps = 0\n"))
+	if err == nil || !strings.Contains(err.Error(), "[loop]") || !strings.Contains(err.Error(), "[drive] microsteps 0") {
+		t.Errorf("not every bad key reported: %v", err)
+	}
+}
+
+func TestExampleConfigsParse(t *testing.T) {
+	files, _ := os.ReadDir("../configs")
+	n := 0
+	for _, f := range files {
+		if !strings.HasPrefix(f.Name(), "station-") || !strings.HasSuffix(f.Name(), ".toml") {
+			continue
+		}
+		n++
+		if _, err := LoadSpec("../configs/" + f.Name()); err != nil {
+			t.Errorf("%s: %v", f.Name(), err)
+		}
+	}
+	if n == 0 {
+		t.Fatal("no example station descriptions in configs/")
+	}
+}
+
+func TestRFDipMatchesModel(t *testing.T) {
+	s := DefaultSpec()
+	c, err := s.CapacitorModel()
+	if err != nil {
+		t.Fatal(err)
+	}
+	rf, err := NewRF(s.Model(), s.FeedModel(), c)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range []float64{1.85e6, 3.75e6, 7.1e6} {
+		turns, ok := rf.DipTurns(f, 20)
+		if !ok {
+			t.Fatalf("%g Hz out of the capacitor's range", f)
+		}
+		// At the dip the reactance vanishes and the SWR is the feed's best.
+		if y := rf.Detuning(f, turns, 20); math.Abs(y) > 1e-6 {
+			t.Errorf("%g Hz: detuning %g at the dip", f, y)
+		}
+		if got, want := rf.SWR(f, turns, 20), s.FeedModel().BestSWR(f); math.Abs(got-want) > 1e-9 {
+			t.Errorf("%g Hz: SWR %g at the dip, want the feed's best %g", f, got, want)
+		}
+	}
+}
+
+func BenchmarkSWREvaluation(b *testing.B) {
+	s := DefaultSpec()
+	c, _ := s.CapacitorModel()
+	rf, _ := NewRF(s.Model(), s.FeedModel(), c)
+	turns, _ := rf.DipTurns(3.75e6, 20)
+	sum := 0.0
+	i := 0.0
+	for b.Loop() {
+		sum += rf.Gamma2(3.75e6, turns+i*1e-7, 20)
+		i++
+	}
+	_ = sum
+}
+
+func TestDefaultConfigFileIsDefaultSpec(t *testing.T) {
+	s, err := LoadSpec("../configs/station-default.toml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := DefaultSpec()
+	// Compare through TOML-independent fields: the printed form of the whole struct.
+	if got, want := fmtSpec(s), fmtSpec(d); got != want {
+		t.Errorf("configs/station-default.toml drifted from DefaultSpec:\n file %s\n code %s", got, want)
+	}
+}
