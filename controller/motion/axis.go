@@ -1,0 +1,762 @@
+package motion
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"sync"
+	"time"
+
+	"github.com/tankd/tankd/controller/clock"
+)
+
+// Outcomes of Axis operations, for errors.Is.
+var (
+	// ErrSoftLimit: the target lies outside the soft limits. Targets are never clamped.
+	ErrSoftLimit = errors.New("target outside the soft limits")
+	// ErrUntrusted: the position is not known (not homed or referenced, or lost since).
+	ErrUntrusted = errors.New("position not trusted")
+	// ErrFault: a fault is latched; every move is refused until Reset.
+	ErrFault = errors.New("axis fault")
+	// ErrBusy: a move is already running.
+	ErrBusy = errors.New("a move is running")
+	// ErrDisabled: the motor is released; call Enable first.
+	ErrDisabled = errors.New("motor disabled")
+	// ErrLimitSwitch: a limit switch was found active in the way of a move. It latches a fault.
+	ErrLimitSwitch = errors.New("limit switch active")
+	// ErrSwitchRead: a switch could not be read. It latches a fault.
+	ErrSwitchRead = errors.New("switch read failed")
+	// ErrDrive: the drive failed or misbehaved. It latches a fault.
+	ErrDrive = errors.New("drive failure")
+	// ErrStopped: a move ended short of its target (halted, or released, from elsewhere).
+	ErrStopped = errors.New("move stopped short of its target")
+	// ErrNoHomeSwitch: Home was called on an axis without a home switch.
+	ErrNoHomeSwitch = errors.New("no home switch")
+	// ErrSwitchStuck: the home switch stayed active while the axis backed away from it.
+	ErrSwitchStuck = errors.New("home switch stuck active")
+	// ErrSwitchNeverTriggered: the home switch did not trip within the allowed travel.
+	ErrSwitchNeverTriggered = errors.New("home switch never triggered")
+)
+
+// Switches are the axis's optional switch inputs; each may be nil. The home switch must be an
+// input of its own, inside the travel the limit switches guard.
+type Switches struct {
+	Home, Lower, Upper Switch
+}
+
+// Options configure an Axis. Zero values take the documented defaults, except Min and Max.
+type Options struct {
+	Min, Max        Steps         // soft limits, inclusive; Min < Max; no default
+	MaxSpeed, Accel float64       // steps/s, steps/s²; default 4000 and 20000
+	Settle          time.Duration // wait after every move before it counts as done; default 50 ms
+	Poll            time.Duration // how often a running move is checked; default 2 ms
+	Backlash        Steps         // gear play, used by Approach; 0 = none
+	Approach        Direction     // final-approach direction for Approach; default Up
+	ApproachMargin  Steps         // extra run-up beyond the backlash; default 32
+	// SlipWhenReleased says the mechanics can turn with the motor released (a spring, gravity):
+	// Disable then makes the position untrusted.
+	SlipWhenReleased bool
+	Homing           HomingOptions
+	Logger           *slog.Logger // default: discard
+}
+
+// HomingOptions configure Home. Every leg of homing is a bounded move, so the whole search
+// travels at most MaxTravel + 6·BackOff plus a ramped stop's overshoot.
+type HomingOptions struct {
+	Dir       Direction // toward the home switch; default Down
+	FastSpeed float64   // seek speed, steps/s; default MaxSpeed/2
+	// SlowSpeed is the re-approach speed, steps/s; default 200 or FastSpeed if lower. The switch
+	// edge is found to within SlowSpeed·Poll steps.
+	SlowSpeed float64
+	BackOff   Steps // retreat from the switch; must exceed its hysteresis; default 400
+	// MaxTravel bounds the seek for the switch; default (Max−Min) + 2·BackOff. Where the
+	// mechanics have hard stops, it must not reach them from anywhere in the travel.
+	MaxTravel Steps
+	// HomePosition is the position assigned at the switch edge, found moving in Dir.
+	HomePosition Steps
+}
+
+func (o *Options) resolve() error {
+	def := func(v *float64, d float64) {
+		if *v == 0 {
+			*v = d
+		}
+	}
+	def(&o.MaxSpeed, 4000)
+	def(&o.Accel, 20000)
+	if o.Settle == 0 {
+		o.Settle = 50 * time.Millisecond
+	}
+	if o.Poll == 0 {
+		o.Poll = 2 * time.Millisecond
+	}
+	if o.Approach == 0 {
+		o.Approach = Up
+	}
+	if o.ApproachMargin == 0 {
+		o.ApproachMargin = 32
+	}
+	h := &o.Homing
+	if h.Dir == 0 {
+		h.Dir = Down
+	}
+	def(&h.FastSpeed, o.MaxSpeed/2)
+	def(&h.SlowSpeed, math.Min(200, h.FastSpeed))
+	if h.BackOff == 0 {
+		h.BackOff = 400
+	}
+	if h.MaxTravel == 0 && o.Max > o.Min {
+		h.MaxTravel = o.Max - o.Min + 2*h.BackOff
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+
+	var errs []error
+	bad := func(key string, v any, want string) {
+		errs = append(errs, fmt.Errorf("%s = %v: want %s", key, v, want))
+	}
+	speed := func(key string, v float64) {
+		if !(v > 0) || math.IsInf(v, 0) {
+			bad(key, v, "a positive finite number")
+		}
+	}
+	if o.Min >= o.Max {
+		bad("Max", o.Max, fmt.Sprintf("above Min (%d)", o.Min))
+	}
+	speed("MaxSpeed", o.MaxSpeed)
+	speed("Accel", o.Accel)
+	speed("Homing.FastSpeed", h.FastSpeed)
+	speed("Homing.SlowSpeed", h.SlowSpeed)
+	if h.FastSpeed > o.MaxSpeed {
+		bad("Homing.FastSpeed", h.FastSpeed, fmt.Sprintf("at most MaxSpeed (%v)", o.MaxSpeed))
+	}
+	if h.SlowSpeed > h.FastSpeed {
+		bad("Homing.SlowSpeed", h.SlowSpeed, fmt.Sprintf("at most Homing.FastSpeed (%v)", h.FastSpeed))
+	}
+	if o.Settle < 0 {
+		bad("Settle", o.Settle, ">= 0")
+	}
+	if o.Poll < 0 {
+		bad("Poll", o.Poll, "> 0")
+	}
+	if o.Backlash < 0 {
+		bad("Backlash", o.Backlash, ">= 0")
+	}
+	if o.ApproachMargin < 0 {
+		bad("ApproachMargin", o.ApproachMargin, ">= 0")
+	}
+	if o.Approach != Up && o.Approach != Down {
+		bad("Approach", int(o.Approach), "+1 or -1")
+	}
+	if h.Dir != Up && h.Dir != Down {
+		bad("Homing.Dir", int(h.Dir), "+1 or -1")
+	}
+	if h.BackOff < 0 {
+		bad("Homing.BackOff", h.BackOff, "> 0")
+	}
+	if h.MaxTravel < 0 {
+		bad("Homing.MaxTravel", h.MaxTravel, "> 0")
+	}
+	if len(errs) > 0 {
+		return fmt.Errorf("axis options: %w", errors.Join(errs...))
+	}
+	return nil
+}
+
+// AxisState is a copy of an Axis's state, for status reports and metrics.
+type AxisState struct {
+	Position Steps // commanded position, as last polled
+	Target   Steps // target of the running or last move
+	Trusted  bool
+	Distrust string // why the position is not trusted; empty when it is
+	Moving   bool
+	Enabled  bool
+	Fault    string // the latched fault; empty if none
+	Backlash Steps
+	// Play is the direction in which the gear play is known to be taken up at Position: the
+	// last motion ran at least Backlash that way. 0 when unknown.
+	Play Direction
+}
+
+// Axis is the one place that knows the motor's position. It owns a Drive, the switches and a
+// clock; it refuses moves beyond the soft limits or from an unknown position, and stops the motor
+// and latches a fault on any failure.
+//
+// An Axis is driven by one goroutine (its owner). Snapshot, Position, Trusted and Fault may be
+// called from any goroutine, and so may Halt.
+type Axis struct {
+	d   Drive
+	clk clock.Clock
+	sw  Switches
+	o   Options
+	log *slog.Logger
+
+	mu       sync.Mutex
+	pos      Steps
+	trusted  bool
+	why      string
+	enabled  bool
+	fault    error // latched; wraps ErrFault
+	backlash Steps
+
+	// The running (or last) move: it began at t0 from position from, on plan prof (with any
+	// ramped stop applied).
+	moving    bool
+	t0        time.Time
+	from      Steps
+	prof      Profile
+	dir       Direction
+	planned   int64
+	counted   int64 // pulses of the move already in pos
+	target    Steps
+	limitsWas [2]bool // lower and upper limit switch state when the move started
+	unsettled bool    // a move ended and its settling time has not been waited
+
+	// Gear play: the last direction the motor ran and how far since it last reversed.
+	lastDir Direction
+	run     Steps
+}
+
+// NewAxis returns an axis on drive d, with position untrusted and the motor assumed released:
+// the caller must Enable it and then Home or Reference it before moving.
+func NewAxis(d Drive, clk clock.Clock, sw Switches, opts Options) (*Axis, error) {
+	if d == nil || clk == nil {
+		return nil, errors.New("new axis: drive and clock are required")
+	}
+	if err := opts.resolve(); err != nil {
+		return nil, fmt.Errorf("new axis: %w", err)
+	}
+	a := &Axis{d: d, clk: clk, sw: sw, o: opts, backlash: opts.Backlash, why: "not homed"}
+	a.log = opts.Logger.With("component", "axis", "drive", d.String())
+	return a, nil
+}
+
+// String names the axis by its drive.
+func (a *Axis) String() string { return "axis on " + a.d.String() }
+
+// Position returns the commanded motor position as of the last poll.
+func (a *Axis) Position() Steps {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.pos
+}
+
+// Trusted reports whether the position is known.
+func (a *Axis) Trusted() bool {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.trusted
+}
+
+// Fault returns the latched fault, nil if none. It wraps ErrFault and the cause.
+func (a *Axis) Fault() error {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.fault
+}
+
+// Snapshot returns a copy of the axis's state.
+func (a *Axis) Snapshot() AxisState {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	s := AxisState{
+		Position: a.pos, Target: a.target, Trusted: a.trusted, Moving: a.moving,
+		Enabled: a.enabled, Backlash: a.backlash, Play: a.play(),
+	}
+	if !a.trusted {
+		s.Distrust = a.why
+	}
+	if a.fault != nil {
+		s.Fault = a.fault.Error()
+	}
+	return s
+}
+
+// Reference declares the current position to be p and trusts it. A running move is stopped at
+// once first, and p is where it stopped. Reference does not clear a latched fault, and Reset
+// distrusts the position again: after a fault, Reset first.
+func (a *Axis) Reference(p Steps) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.moving {
+		a.d.Stop(false)
+		a.endMove()
+	}
+	a.rebase(p)
+	a.trusted, a.why = true, ""
+	a.log.Info("position referenced", "pos", p)
+}
+
+// rebase moves the frame so that the current position reads p, the last move included, so
+// that PositionAt stays consistent for readings taken during it.
+func (a *Axis) rebase(p Steps) {
+	a.from += p - a.pos
+	a.pos = p
+}
+
+// SoftLimits returns the inclusive range moves may target.
+func (a *Axis) SoftLimits() (lo, hi Steps) { return a.o.Min, a.o.Max }
+
+// PositionAt estimates the position at instant t, in steps with a fraction, for a reading taken
+// while the motor moved: the latest move's ideal trajectory (with any ramped stop) at t, its start
+// position for earlier instants, and never beyond the pulses counted once the move has ended.
+// The fraction is where between two pulses the trajectory was; a real drive follows the plan to
+// within its step timing, a fraction of a step at the speeds used while sampling.
+func (a *Axis) PositionAt(t time.Time) float64 {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.t0.IsZero() {
+		return float64(a.pos)
+	}
+	x := a.prof.positionAt(t.Sub(a.t0))
+	if !a.moving {
+		x = min(x, float64(a.counted))
+	}
+	return float64(a.from) + float64(a.dir)*x
+}
+
+// rampStop asks the drive for a controlled stop and applies the same stop to the plan.
+func (a *Axis) rampStop() {
+	if !a.moving {
+		return
+	}
+	a.d.Stop(true)
+	a.prof = a.prof.StopAt(a.clk.Now().Sub(a.t0))
+}
+
+// Distrust marks the position unknown, for example when the tuning found the resonance where the
+// memory says it cannot be.
+func (a *Axis) Distrust(reason string) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	a.distrust(reason)
+}
+
+func (a *Axis) distrust(reason string) {
+	if a.trusted {
+		a.log.Warn("position no longer trusted", "reason", reason)
+	}
+	a.trusted, a.why = false, reason
+}
+
+// UseBacklash installs a measured gear play for Approach; a negative value counts as none.
+func (a *Axis) UseBacklash(b Steps) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	a.backlash = max(b, 0)
+}
+
+// play is the direction in which the gear play is taken up, 0 if unknown.
+func (a *Axis) play() Direction {
+	if a.lastDir != 0 && a.run >= a.backlash {
+		return a.lastDir
+	}
+	return 0
+}
+
+func (a *Axis) forgetPlay() { a.lastDir, a.run = 0, 0 }
+
+// trip stops the motor at once and latches cause as the fault; the first fault stays latched,
+// being the likeliest root. The position is no longer trusted: an abrupt stop at speed can lose
+// steps.
+func (a *Axis) trip(cause error) error {
+	a.d.Stop(false)
+	if a.moving {
+		a.endMove()
+	}
+	err := fmt.Errorf("%w: %w", ErrFault, cause)
+	if a.fault == nil {
+		a.fault = err
+	}
+	a.distrust("fault: " + cause.Error())
+	a.forgetPlay()
+	a.log.Error("fault: motor stopped", "err", cause, "pos", a.pos)
+	return err
+}
+
+// account brings pos up to the drive's count of emitted pulses.
+func (a *Axis) account(emitted int64) {
+	n := emitted - a.counted
+	if n <= 0 {
+		return
+	}
+	a.counted = emitted
+	a.pos += Steps(a.dir) * n
+	if a.dir != a.lastDir {
+		a.lastDir, a.run = a.dir, 0
+	}
+	a.run = min(a.run+n, math.MaxInt64/2)
+}
+
+// endMove takes the final count of a move that has stopped.
+func (a *Axis) endMove() {
+	emitted, _ := a.d.Progress()
+	a.account(emitted)
+	a.moving = false
+	if a.counted > 0 {
+		a.unsettled = true
+	}
+}
+
+func (a *Axis) ready() error {
+	switch {
+	case a.fault != nil:
+		return a.fault
+	case a.moving:
+		return ErrBusy
+	case !a.enabled:
+		return ErrDisabled
+	}
+	return nil
+}
+
+// checkTarget refuses a normal move to target.
+func (a *Axis) checkTarget(target Steps) error {
+	if err := a.ready(); err != nil {
+		return err
+	}
+	if !a.trusted {
+		return fmt.Errorf("%w (%s)", ErrUntrusted, a.why)
+	}
+	if target < a.o.Min || target > a.o.Max {
+		return fmt.Errorf("%w: %d not in [%d, %d]", ErrSoftLimit, target, a.o.Min, a.o.Max)
+	}
+	return nil
+}
+
+// Start begins a move to target at up to speed steps/s (0 or above MaxSpeed: MaxSpeed) and
+// returns at once; Poll or Wait follow it. A move to the current position does nothing.
+func (a *Axis) Start(target Steps, speed float64) error {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if err := a.checkTarget(target); err != nil {
+		return fmt.Errorf("axis: move to %d: %w", target, err)
+	}
+	if err := a.begin(target, speed); err != nil {
+		return fmt.Errorf("axis: move to %d: %w", target, err)
+	}
+	return nil
+}
+
+// begin starts the drive toward target without the soft-limit and trust checks, which the caller
+// has made (or, homing, deliberately skipped).
+func (a *Axis) begin(target Steps, speed float64) error {
+	if math.IsNaN(speed) || speed < 0 {
+		return fmt.Errorf("speed %v: %w", speed, ErrBadProfile)
+	}
+	if speed == 0 || speed > a.o.MaxSpeed {
+		speed = a.o.MaxSpeed
+	}
+	n := target - a.pos
+	if n == 0 {
+		return nil
+	}
+	dir := Up
+	if n < 0 {
+		dir, n = Down, -n
+	}
+	p, err := Plan(n, speed, a.o.Accel)
+	if err != nil {
+		return err
+	}
+	lower, upper, err := a.limits()
+	if err != nil {
+		return a.trip(err)
+	}
+	if (dir == Down && lower) || (dir == Up && upper) {
+		return a.trip(fmt.Errorf("%w: %s limit switch, before moving %s", ErrLimitSwitch, limitName(dir), dir))
+	}
+	if err := a.d.Start(Move{Dir: dir, Profile: p}); err != nil {
+		return a.trip(fmt.Errorf("%w: start %s: %w", ErrDrive, a.d, err))
+	}
+	a.moving, a.dir, a.planned, a.counted, a.target = true, dir, n, 0, target
+	a.t0, a.from, a.prof = a.clk.Now(), a.pos, p
+	a.limitsWas = [2]bool{lower, upper}
+	a.unsettled = false
+	return nil
+}
+
+func limitName(d Direction) string {
+	if d == Down {
+		return "lower"
+	}
+	return "upper"
+}
+
+// limits reads the limit switches; an absent switch reads inactive.
+func (a *Axis) limits() (lower, upper bool, err error) {
+	read := func(s Switch) (bool, error) {
+		if s == nil {
+			return false, nil
+		}
+		on, err := s.Active()
+		if err != nil {
+			return false, fmt.Errorf("%w: %s: %w", ErrSwitchRead, s, err)
+		}
+		return on, nil
+	}
+	if lower, err = read(a.sw.Lower); err != nil {
+		return false, false, err
+	}
+	upper, err = read(a.sw.Upper)
+	return lower, upper, err
+}
+
+// Poll brings the bookkeeping up to date with the drive and checks the limit switches, tripping
+// a fault if one is active in the direction of travel or became active during the move. It
+// returns the latched fault, if any, as its error.
+func (a *Axis) Poll() (pos Steps, moving bool, err error) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.pos, a.moving, a.poll()
+}
+
+func (a *Axis) poll() error {
+	if !a.moving {
+		return a.fault
+	}
+	emitted, running := a.d.Progress()
+	a.account(emitted)
+	if emitted > a.planned {
+		return a.trip(fmt.Errorf("%w: %s emitted %d pulses of a %d-pulse move", ErrDrive, a.d, emitted, a.planned))
+	}
+	lower, upper, err := a.limits()
+	if err != nil {
+		return a.trip(err)
+	}
+	switch {
+	case lower && (a.dir == Down || !a.limitsWas[0]):
+		return a.trip(fmt.Errorf("%w: lower limit switch while moving %s at %d", ErrLimitSwitch, a.dir, a.pos))
+	case upper && (a.dir == Up || !a.limitsWas[1]):
+		return a.trip(fmt.Errorf("%w: upper limit switch while moving %s at %d", ErrLimitSwitch, a.dir, a.pos))
+	}
+	if !running {
+		a.endMove()
+	}
+	return nil
+}
+
+// Wait follows the running move until it ends, then waits the settling time. If ctx ends first,
+// Wait begins a ramped stop (which never passes the move's target) and returns ctx's error; the
+// axis may still be moving then, and a later Poll or Wait sees the stop through.
+func (a *Axis) Wait(ctx context.Context) error {
+	if _, _, err := a.follow(ctx, nil); err != nil {
+		return fmt.Errorf("axis: wait: %w", err)
+	}
+	return nil
+}
+
+// follow polls the running move to its end and settles. With until, it checks until at every
+// poll and, the first time it reports true, begins a ramped stop and notes the position.
+func (a *Axis) follow(ctx context.Context, until func() (bool, error)) (fired bool, at Steps, err error) {
+	for {
+		a.mu.Lock()
+		err := a.poll()
+		moving := a.moving
+		if err == nil && until != nil && !fired {
+			var hit bool
+			if hit, err = until(); err != nil {
+				err = a.trip(err)
+			} else if hit {
+				fired, at = true, a.pos
+				a.rampStop()
+			}
+		}
+		a.mu.Unlock()
+		if err != nil {
+			return fired, at, err
+		}
+		if !moving {
+			break
+		}
+		if err := a.clk.Sleep(ctx, a.o.Poll); err != nil {
+			a.mu.Lock()
+			a.rampStop()
+			a.mu.Unlock()
+			return fired, at, err
+		}
+	}
+	a.mu.Lock()
+	unsettled := a.unsettled
+	a.mu.Unlock()
+	if unsettled {
+		if err := a.clk.Sleep(ctx, a.o.Settle); err != nil {
+			return fired, at, fmt.Errorf("settle: %w", err)
+		}
+		a.mu.Lock()
+		a.unsettled = false
+		a.mu.Unlock()
+	}
+	return fired, at, nil
+}
+
+// MoveTo moves to target at up to speed (0 = MaxSpeed) and waits until it has settled there.
+// It fails with ErrStopped if the move was cut short, for example by a Halt.
+func (a *Axis) MoveTo(ctx context.Context, target Steps, speed float64) error {
+	if err := a.Start(target, speed); err != nil {
+		return err
+	}
+	if err := a.Wait(ctx); err != nil {
+		return err
+	}
+	if pos := a.Position(); pos != target {
+		return fmt.Errorf("axis: move to %d: %w at %d", target, ErrStopped, pos)
+	}
+	return nil
+}
+
+// Approach arrives at target from the configured approach direction with the gear play taken
+// up. If the last motion into target would come from the other side, or would not run far
+// enough to take up the play, it first goes to target − dir·(Backlash+ApproachMargin), clamped
+// into the soft limits. Within Backlash+ApproachMargin of the soft limit behind the approach the
+// run-up is shortened by the clamp, so keep tuning targets out of that strip.
+func (a *Axis) Approach(ctx context.Context, target Steps) error {
+	a.mu.Lock()
+	if err := a.checkTarget(target); err != nil {
+		a.mu.Unlock()
+		return fmt.Errorf("axis: approach %d: %w", target, err)
+	}
+	pre, need := a.runUp(target)
+	a.mu.Unlock()
+	if need {
+		if err := a.MoveTo(ctx, pre, 0); err != nil {
+			return fmt.Errorf("axis: approach %d: run-up: %w", target, err)
+		}
+	}
+	if err := a.MoveTo(ctx, target, 0); err != nil {
+		return fmt.Errorf("axis: approach %d: %w", target, err)
+	}
+	return nil
+}
+
+// runUp says where Approach must start from, if it must go anywhere first.
+func (a *Axis) runUp(target Steps) (pre Steps, need bool) {
+	dir, b := a.o.Approach, a.backlash
+	if b == 0 {
+		return 0, false
+	}
+	delta := target - a.pos
+	switch {
+	case delta == 0:
+		need = a.play() != dir
+	case (delta > 0) == (dir == Up):
+		carried := Steps(0)
+		if a.lastDir == dir {
+			carried = a.run
+		}
+		need = carried+abs(delta) < b
+	default:
+		need = true
+	}
+	pre = min(max(target-Steps(dir)*(b+a.o.ApproachMargin), a.o.Min), a.o.Max)
+	return pre, need && pre != target
+}
+
+func abs(s Steps) Steps {
+	if s < 0 {
+		return -s
+	}
+	return s
+}
+
+// StopMove brings a running move to a controlled (ramped) stop and waits until it has settled.
+// It returns the latched fault, if any.
+func (a *Axis) StopMove(ctx context.Context) error {
+	a.mu.Lock()
+	a.rampStop()
+	a.mu.Unlock()
+	return a.Wait(ctx)
+}
+
+// Enable energises the motor and waits the settling time for the rotor to lock. It is allowed
+// with a fault latched: a motor that holds still is the safe state.
+func (a *Axis) Enable(ctx context.Context) error {
+	a.mu.Lock()
+	if a.enabled {
+		a.mu.Unlock()
+		return nil
+	}
+	if err := a.d.Enable(true); err != nil {
+		err = a.trip(fmt.Errorf("%w: enable %s: %w", ErrDrive, a.d, err))
+		a.mu.Unlock()
+		return fmt.Errorf("axis: enable: %w", err)
+	}
+	a.enabled = true
+	a.mu.Unlock()
+	if err := a.clk.Sleep(ctx, a.o.Settle); err != nil {
+		return fmt.Errorf("axis: enable: %w", err)
+	}
+	return nil
+}
+
+// Disable brings a running move to a ramped stop and releases the motor. A released motor no
+// longer holds the gear play, so the play is forgotten; with SlipWhenReleased the position is
+// no longer trusted either. If ctx ends during the stop, the motor is stopped at once instead.
+func (a *Axis) Disable(ctx context.Context) error {
+	var waitErr error
+	if a.Snapshot().Moving {
+		waitErr = a.StopMove(ctx)
+	}
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.moving {
+		a.d.Stop(false)
+		a.endMove()
+		a.distrust("stopped abruptly")
+	}
+	a.forgetPlay()
+	err := a.d.Enable(false)
+	a.enabled = false
+	if a.o.SlipWhenReleased {
+		a.distrust("motor released")
+	}
+	if err != nil {
+		return fmt.Errorf("axis: disable: %w", a.trip(fmt.Errorf("%w: release %s: %w", ErrDrive, a.d, err)))
+	}
+	if waitErr != nil {
+		return fmt.Errorf("axis: disable: %w", waitErr)
+	}
+	return nil
+}
+
+// Reset clears a latched fault, an explicit operator action. The position stays untrusted.
+func (a *Axis) Reset() error {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.fault == nil {
+		return nil
+	}
+	a.d.Stop(false)
+	if _, running := a.d.Progress(); running {
+		return fmt.Errorf("axis: reset: %w: %s still running after a stop", ErrDrive, a.d)
+	}
+	a.log.Info("fault reset", "fault", a.fault)
+	a.fault = nil
+	a.distrust("fault reset")
+	return nil
+}
+
+// Halt stops at once and releases the motor, leaving the axis inert (periph's conn.Resource
+// convention). A move cut short at speed, or a motor that may slip, leaves the position
+// untrusted.
+func (a *Axis) Halt() error {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	err := a.d.Halt()
+	if a.moving {
+		a.endMove()
+		a.distrust("halted during a move")
+	}
+	a.enabled = false
+	a.forgetPlay()
+	if a.o.SlipWhenReleased {
+		a.distrust("motor released")
+	}
+	if err != nil {
+		return fmt.Errorf("axis: halt %s: %w", a.d, err)
+	}
+	return nil
+}

@@ -1,0 +1,19 @@
+// Package motion plans the stepper's moves and keeps the one authoritative account of where the
+// motor is.
+//
+// A Profile is the speed plan of one move (trapezoid or triangle, with an optional ramped early
+// stop); its position queries are exact and O(1) for simulators, and Delays gives the per-pulse
+// timing a real pulse generator follows. A Drive executes profiles; it knows nothing of
+// positions.
+//
+// An Axis owns a Drive, its switches and a clock. It counts the pulses the drive actually
+// emitted, refuses any target outside the soft limits (ErrSoftLimit) or from an unknown position
+// (ErrUntrusted), and on any fault (drive error, limit switch, switch read error) stops the motor
+// at once and latches the fault (ErrFault) until an explicit Reset. Approach arrives at a target
+// from one side with the gear play taken up, so that equal targets give equal capacitor angles.
+//
+// What the caller must do: create the Axis with resolved resources, Enable it, then Home (or
+// Reference, when the position is known some other way) before any move; drive it from one
+// goroutine, reading Snapshot from others; after a fault, find the cause, Reset, and re-home;
+// and Halt it on the way out.
+package motion
