@@ -1,0 +1,599 @@
+package memmap
+
+import (
+	"bytes"
+	"crypto/sha256"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"math"
+	"os"
+	"path/filepath"
+	"slices"
+	"strconv"
+	"strings"
+)
+
+// The map file's signature and the one version this build reads and writes.
+const (
+	fileMagic   = "tankd-tunemap"
+	fileVersion = 1
+	// PrevSuffix is appended to a map file's path to name the previous good copy.
+	PrevSuffix = ".prev"
+	// tempInfix names the temporary files a save writes before renaming one into place.
+	tempInfix = ".tmp-"
+	// maxFileSize bounds what Load reads: a full map is well under a megabyte.
+	maxFileSize = 16 << 20
+)
+
+// Errors of Load, for errors.Is.
+var (
+	// ErrCorrupt: a map file fails its checksum or does not parse (torn, truncated or edited).
+	ErrCorrupt = errors.New("corrupt map file")
+	// ErrVersion: a map file was written in a format version this build does not read. Load
+	// does not fall back to the previous copy over it, so as not to lose newer data.
+	ErrVersion = errors.New("unsupported map file version")
+	// ErrUsedPrevious: the main copy was missing or unusable, and the map came from the
+	// previous copy. Load returns a usable map with it; the caller should log it.
+	ErrUsedPrevious = errors.New("using the previous copy")
+)
+
+// Save writes the map to path atomically: a crash at any moment leaves either the old or the
+// new file in place, never a mix. A good file already at path is kept as path+PrevSuffix.
+// Only one writer may save to a path at a time.
+func (m *Map) Save(path string) error {
+	return m.save(osOps{}, path)
+}
+
+func (m *Map) save(ops fileOps, path string) error {
+	if err := writeMap(ops, path, m.encode()); err != nil {
+		return fmt.Errorf("memmap: save %s: %w", path, err)
+	}
+	return nil
+}
+
+// Load reads the map saved at path with Save. A missing or unusable file falls back to the
+// previous copy: then the map is returned together with an error wrapping ErrUsedPrevious and
+// the reason. With neither file there (the first run), Load returns an empty map and no error.
+// If no usable map is found, Load returns nil and an error wrapping ErrCorrupt, ErrVersion or
+// the I/O error; the files are left alone for inspection.
+func Load(path string, opts Options) (*Map, error) {
+	o, err := opts.resolve()
+	if err != nil {
+		return nil, err
+	}
+	m, mainErr := loadFile(path, o)
+	if mainErr == nil {
+		return m, nil
+	}
+	if errors.Is(mainErr, ErrVersion) {
+		return nil, fmt.Errorf("memmap: load %s: %w", path, mainErr)
+	}
+	pm, prevErr := loadFile(path+PrevSuffix, o)
+	switch {
+	case prevErr == nil:
+		return pm, fmt.Errorf("memmap: load %s: %w: main copy: %w", path, ErrUsedPrevious, mainErr)
+	case errors.Is(mainErr, fs.ErrNotExist) && errors.Is(prevErr, fs.ErrNotExist):
+		return &Map{o: o}, nil
+	}
+	return nil, fmt.Errorf("memmap: load %s: %w; previous copy: %w", path, mainErr, prevErr)
+}
+
+func loadFile(path string, o resolved) (*Map, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, err
+	}
+	defer f.Close()
+	data, err := io.ReadAll(io.LimitReader(f, maxFileSize+1))
+	if err != nil {
+		return nil, err
+	}
+	if len(data) > maxFileSize {
+		return nil, fmt.Errorf("%w: larger than %d bytes", ErrCorrupt, maxFileSize)
+	}
+	return decode(data, o)
+}
+
+// encode writes the map in the file format; see FORMAT in doc.go.
+func (m *Map) encode() []byte {
+	m.mu.RLock()
+	defer m.mu.RUnlock()
+	b := make([]byte, 0, 256+320*len(m.ents))
+	b = fmt.Appendf(b, "%s %d\n", fileMagic, fileVersion)
+	f := &m.flt
+	b = append(b, "drift at="...)
+	if f.started {
+		b = appendTime(b, f.at)
+	} else {
+		b = append(b, '-')
+	}
+	b = append(b, " x="...)
+	b = appendVec(b, &f.x)
+	b = append(b, " p="...)
+	b = appendSym(b, &f.p)
+	b = append(b, " tref="...)
+	b = appendOptCelsius(b, f.tref, f.hasRef)
+	b = append(b, " trec="...)
+	b = appendOptCelsius(b, f.trec, f.hasRec)
+	b = fmt.Appendf(b, "\npoints %d\n", len(m.ents))
+
+	order := make([]int, len(m.ents))
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortFunc(order, func(i, j int) int { return cmpFreq(m.ents[i].pt.Freq, m.ents[j].pt.Freq) })
+	for _, i := range order {
+		e := &m.ents[i]
+		b = append(b, "point f="...)
+		b = appendHz(b, e.pt.Freq)
+		b = append(b, " pos="...)
+		b = strconv.AppendInt(b, e.pt.Pos, 10)
+		b = append(b, " at="...)
+		if e.pt.At.IsZero() {
+			b = append(b, '-')
+		} else {
+			b = appendTime(b, e.pt.At)
+		}
+		b = append(b, " temp="...)
+		if e.pt.HasTemp {
+			b = appendCelsius(b, e.pt.Temp)
+		} else {
+			b = append(b, '-')
+		}
+		b = append(b, " swr="...)
+		b = appendOptFloat(b, e.pt.SWR)
+		b = append(b, " q="...)
+		b = appendOptFloat(b, e.pt.Q)
+		b = append(b, " eps="...)
+		b = appendFloat(b, e.eps)
+		b = append(b, " off="...)
+		b = appendFloat(b, e.off)
+		b = append(b, " dt="...)
+		b = appendFloat(b, e.dT)
+		b = append(b, " p="...)
+		b = appendSym(b, &e.p)
+		b = append(b, " c="...)
+		b = appendMat(b, &e.c)
+		b = append(b, '\n')
+	}
+	sum := sha256.Sum256(b)
+	b = append(b, "sha256 "...)
+	b = hex.AppendEncode(b, sum[:])
+	return append(b, '\n')
+}
+
+func appendOptFloat(b []byte, v float64) []byte {
+	if v == 0 {
+		return append(b, '-')
+	}
+	return appendFloat(b, v)
+}
+
+func appendOptCelsius(b []byte, c float64, has bool) []byte {
+	if !has {
+		return append(b, '-')
+	}
+	return appendFloat(b, c)
+}
+
+func appendVec(b []byte, v *vec) []byte {
+	for i := range ns {
+		if i > 0 {
+			b = append(b, ',')
+		}
+		b = appendFloat(b, v[i])
+	}
+	return b
+}
+
+// appendSym writes the upper triangle of a symmetric matrix, row by row.
+func appendSym(b []byte, p *mat) []byte {
+	for i := range ns {
+		for j := i; j < ns; j++ {
+			if i+j > 0 {
+				b = append(b, ',')
+			}
+			b = appendFloat(b, p[i][j])
+		}
+	}
+	return b
+}
+
+func appendMat(b []byte, p *mat) []byte {
+	for i := range ns {
+		for j := range ns {
+			if i+j > 0 {
+				b = append(b, ',')
+			}
+			b = appendFloat(b, p[i][j])
+		}
+	}
+	return b
+}
+
+// verify checks the checksum line and then the signature, and returns the body the checksum
+// covers. The framing (a last line "sha256 <hex>" over all that precedes it) is the same in every
+// version, so that a damaged file is told from one of a newer version.
+func verify(data []byte) ([]byte, error) {
+	if len(data) == 0 || data[len(data)-1] != '\n' {
+		return nil, fmt.Errorf("%w: truncated (no final newline)", ErrCorrupt)
+	}
+	i := bytes.LastIndexByte(data[:len(data)-1], '\n')
+	if i < 0 {
+		return nil, fmt.Errorf("%w: truncated (no checksum line)", ErrCorrupt)
+	}
+	body, last := data[:i+1], string(data[i+1:len(data)-1])
+	want, ok := strings.CutPrefix(last, "sha256 ")
+	if !ok || len(want) != 2*sha256.Size {
+		return nil, fmt.Errorf("%w: truncated (no checksum line)", ErrCorrupt)
+	}
+	sum := sha256.Sum256(body)
+	if hex.EncodeToString(sum[:]) != want {
+		return nil, fmt.Errorf("%w: checksum mismatch", ErrCorrupt)
+	}
+	first, _, _ := bytes.Cut(body, []byte{'\n'})
+	magic, ver, ok := strings.Cut(string(first), " ")
+	if !ok || magic != fileMagic {
+		return nil, fmt.Errorf("%w: no %s signature", ErrCorrupt, fileMagic)
+	}
+	if v, err := strconv.Atoi(ver); err != nil || v < 1 || strconv.Itoa(v) != ver {
+		return nil, fmt.Errorf("%w: bad version %q", ErrCorrupt, ver)
+	} else if v != fileVersion {
+		return nil, fmt.Errorf("%w %d: this build reads version %d", ErrVersion, v, fileVersion)
+	}
+	return body, nil
+}
+
+// decode parses a whole map file.
+func decode(data []byte, o resolved) (*Map, error) {
+	body, err := verify(data)
+	if err != nil {
+		return nil, err
+	}
+	return parseBody(body, o)
+}
+
+// lineErr reports a bad line of the body.
+func lineErr(n int, format string, args ...any) error {
+	return fmt.Errorf("%w: line %d: %s", ErrCorrupt, n, fmt.Sprintf(format, args...))
+}
+
+// fields splits a line into its keyword and its key=value fields, which must be keys, in order.
+func fields(n int, line, keyword string, keys ...string) ([]string, error) {
+	parts := strings.Split(line, " ")
+	if parts[0] != keyword {
+		return nil, lineErr(n, "want a %q line", keyword)
+	}
+	if len(parts) != len(keys)+1 {
+		return nil, lineErr(n, "%s: want %d fields, got %d", keyword, len(keys), len(parts)-1)
+	}
+	vals := make([]string, len(keys))
+	for i, k := range keys {
+		v, ok := strings.CutPrefix(parts[i+1], k+"=")
+		if !ok {
+			return nil, lineErr(n, "%s: want field %s=", keyword, k)
+		}
+		vals[i] = v
+	}
+	return vals, nil
+}
+
+// parseBody parses the lines the checksum covers. It is separate from verify so that it can be
+// fuzzed beyond the checksum.
+func parseBody(body []byte, o resolved) (*Map, error) {
+	lines := strings.Split(strings.TrimSuffix(string(body), "\n"), "\n")
+	if len(lines) < 3 {
+		return nil, fmt.Errorf("%w: %d lines, want at least 3", ErrCorrupt, len(lines))
+	}
+	if lines[0] != fmt.Sprintf("%s %d", fileMagic, fileVersion) {
+		return nil, lineErr(1, "want the signature %s %d", fileMagic, fileVersion)
+	}
+	m := &Map{o: o}
+	v, err := fields(2, lines[1], "drift", "at", "x", "p", "tref", "trec")
+	if err != nil {
+		return nil, err
+	}
+	f := &m.flt
+	if v[0] != "-" {
+		if f.at, err = parseTime(v[0]); err != nil {
+			return nil, lineErr(2, "at: %v", err)
+		}
+		f.started = true
+	}
+	xs, err := parseFloats(v[1], ns)
+	if err != nil {
+		return nil, lineErr(2, "x: %v", err)
+	}
+	copy(f.x[:], xs)
+	if f.p, err = parseSym(v[2]); err != nil {
+		return nil, lineErr(2, "p: %v", err)
+	}
+	if f.tref, f.hasRef, err = parseOptFloat(v[3]); err != nil {
+		return nil, lineErr(2, "tref: %v", err)
+	}
+	if f.trec, f.hasRec, err = parseOptFloat(v[4]); err != nil {
+		return nil, lineErr(2, "trec: %v", err)
+	}
+
+	cnt, ok := strings.CutPrefix(lines[2], "points ")
+	n, err := strconv.Atoi(cnt)
+	if !ok || err != nil || n < 0 || strconv.Itoa(n) != cnt {
+		return nil, lineErr(3, "want \"points N\"")
+	}
+	if len(lines) != 3+n {
+		return nil, fmt.Errorf("%w: %d point lines, the header says %d", ErrCorrupt, len(lines)-3, n)
+	}
+	m.ents = make([]entry, 0, n)
+	for i, line := range lines[3:] {
+		e, err := parsePoint(4+i, line)
+		if err != nil {
+			return nil, err
+		}
+		m.ents = append(m.ents, e)
+	}
+	slices.SortFunc(m.ents, func(a, b entry) int { return cmpFreq(a.pt.Freq, b.pt.Freq) })
+	for i := 1; i < len(m.ents); i++ {
+		if m.ents[i].pt.Freq == m.ents[i-1].pt.Freq {
+			return nil, fmt.Errorf("%w: two points at %v", ErrCorrupt, m.ents[i].pt.Freq)
+		}
+	}
+	slices.SortStableFunc(m.ents, func(a, b entry) int {
+		switch {
+		case a.x < b.x:
+			return -1
+		case a.x > b.x:
+			return 1
+		}
+		return 0
+	})
+	for len(m.ents) > m.o.maxPoints {
+		m.evict(-1)
+	}
+	m.refit()
+	return m, nil
+}
+
+func parsePoint(n int, line string) (entry, error) {
+	v, err := fields(n, line, "point", "f", "pos", "at", "temp", "swr", "q", "eps", "off", "dt", "p", "c")
+	if err != nil {
+		return entry{}, err
+	}
+	var p Point
+	if p.Freq, err = parseHz(v[0]); err != nil {
+		return entry{}, lineErr(n, "f: %v", err)
+	}
+	if p.Pos, err = strconv.ParseInt(v[1], 10, 64); err != nil {
+		return entry{}, lineErr(n, "pos: not an integer")
+	}
+	if v[2] != "-" {
+		if p.At, err = parseTime(v[2]); err != nil {
+			return entry{}, lineErr(n, "at: %v", err)
+		}
+	}
+	if v[3] != "-" {
+		if p.Temp, err = parseCelsius(v[3]); err != nil {
+			return entry{}, lineErr(n, "temp: %v", err)
+		}
+		p.HasTemp = true
+	}
+	if p.SWR, _, err = parseOptFloat(v[4]); err != nil {
+		return entry{}, lineErr(n, "swr: %v", err)
+	}
+	if p.Q, _, err = parseOptFloat(v[5]); err != nil {
+		return entry{}, lineErr(n, "q: %v", err)
+	}
+	if err := p.validate(); err != nil {
+		return entry{}, lineErr(n, "%v", err)
+	}
+	e := newEntry(p)
+	var eps, off float64
+	if eps, err = parseFinite(v[6]); err != nil || math.Abs(eps) > 0.5 {
+		return entry{}, lineErr(n, "eps: not a fraction within ±0.5")
+	}
+	if off, err = parseFinite(v[7]); err != nil {
+		return entry{}, lineErr(n, "off: %v", err)
+	}
+	if e.dT, err = parseFinite(v[8]); err != nil {
+		return entry{}, lineErr(n, "dt: %v", err)
+	}
+	if e.p, err = parseSym(v[9]); err != nil {
+		return entry{}, lineErr(n, "p: %v", err)
+	}
+	if e.c, err = parseMat(v[10]); err != nil {
+		return entry{}, lineErr(n, "c: %v", err)
+	}
+	e.place(eps, off)
+	return e, nil
+}
+
+func parseOptFloat(s string) (float64, bool, error) {
+	if s == "-" {
+		return 0, false, nil
+	}
+	v, err := parseFinite(s)
+	return v, err == nil, err
+}
+
+func parseFloats(s string, n int) ([]float64, error) {
+	parts := strings.Split(s, ",")
+	if len(parts) != n {
+		return nil, fmt.Errorf("want %d numbers, got %d", n, len(parts))
+	}
+	out := make([]float64, n)
+	for i, p := range parts {
+		v, err := parseFinite(p)
+		if err != nil {
+			return nil, err
+		}
+		out[i] = v
+	}
+	return out, nil
+}
+
+// parseSym reads a covariance matrix's upper triangle; the variances must not be negative.
+func parseSym(s string) (mat, error) {
+	v, err := parseFloats(s, ns*(ns+1)/2)
+	if err != nil {
+		return mat{}, err
+	}
+	var p mat
+	k := 0
+	for i := range ns {
+		for j := i; j < ns; j++ {
+			p[i][j], p[j][i] = v[k], v[k]
+			k++
+		}
+		if p[i][i] < 0 {
+			return mat{}, errors.New("negative variance")
+		}
+	}
+	return p, nil
+}
+
+func parseMat(s string) (mat, error) {
+	v, err := parseFloats(s, ns*ns)
+	if err != nil {
+		return mat{}, err
+	}
+	var p mat
+	for i := range ns * ns {
+		p[i/ns][i%ns] = v[i]
+	}
+	return p, nil
+}
+
+// fileOps are the filesystem operations of a save, as a seam through which tests inject a
+// failure at each step.
+type fileOps interface {
+	CreateTemp(dir, pattern string) (tempFile, error)
+	ReadFile(name string) ([]byte, error)
+	Remove(name string) error
+	Link(oldname, newname string) error
+	Rename(oldpath, newpath string) error
+	SyncDir(dir string) error
+}
+
+type tempFile interface {
+	Name() string
+	Write(b []byte) (int, error)
+	Sync() error
+	Close() error
+}
+
+type osOps struct{}
+
+func (osOps) CreateTemp(dir, pattern string) (tempFile, error) { return os.CreateTemp(dir, pattern) }
+func (osOps) ReadFile(name string) ([]byte, error)             { return os.ReadFile(name) }
+func (osOps) Remove(name string) error                         { return os.Remove(name) }
+func (osOps) Link(oldname, newname string) error               { return os.Link(oldname, newname) }
+func (osOps) Rename(oldpath, newpath string) error             { return os.Rename(oldpath, newpath) }
+
+func (osOps) SyncDir(dir string) error {
+	d, err := os.Open(dir)
+	if err != nil {
+		return err
+	}
+	err = d.Sync()
+	if cerr := d.Close(); err == nil {
+		err = cerr
+	}
+	return err
+}
+
+// writeMap replaces the file at path with data, keeping a good current file as the previous
+// copy. The order matters: the previous copy is made (a hard link: the current file's data is
+// never written to again) before the new data, complete and on disk, is renamed over path, and
+// at every moment path names a complete file.
+func writeMap(ops fileOps, path string, data []byte) error {
+	dir, base := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	removeStaleTemps(ops, dir, base)
+	old, err := ops.ReadFile(path)
+	switch {
+	case err == nil:
+		// A current file that is itself corrupt must not displace a good previous copy.
+		if _, verr := verify(old); verr == nil {
+			if err := keepPrevious(ops, path, old); err != nil {
+				return err
+			}
+		}
+	case errors.Is(err, fs.ErrNotExist):
+	default:
+		return fmt.Errorf("read current copy: %w", err)
+	}
+	return replaceFile(ops, dir, base, path, data)
+}
+
+func keepPrevious(ops fileOps, path string, old []byte) error {
+	prev := path + PrevSuffix
+	if err := ops.Remove(prev); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return fmt.Errorf("remove old previous copy: %w", err)
+	}
+	if err := ops.Link(path, prev); err == nil {
+		return nil
+	}
+	// Some filesystems have no hard links: copy instead, as atomically as the map itself.
+	dir, base := filepath.Split(prev)
+	if dir == "" {
+		dir = "."
+	}
+	if err := replaceFile(ops, dir, base, prev, old); err != nil {
+		return fmt.Errorf("keep previous copy: %w", err)
+	}
+	return nil
+}
+
+// replaceFile writes data to a new temporary file in dir, makes it durable, renames it over
+// path, and makes the rename durable.
+func replaceFile(ops fileOps, dir, base, path string, data []byte) (err error) {
+	f, err := ops.CreateTemp(dir, base+tempInfix+"*")
+	if err != nil {
+		return fmt.Errorf("create temporary file: %w", err)
+	}
+	name := f.Name()
+	closed := false
+	defer func() {
+		if err != nil {
+			if !closed {
+				f.Close()
+			}
+			ops.Remove(name)
+		}
+	}()
+	if _, err := f.Write(data); err != nil {
+		return fmt.Errorf("write %s: %w", name, err)
+	}
+	if err := f.Sync(); err != nil {
+		return fmt.Errorf("sync %s: %w", name, err)
+	}
+	closed = true
+	if err := f.Close(); err != nil {
+		return fmt.Errorf("close %s: %w", name, err)
+	}
+	if err := ops.Rename(name, path); err != nil {
+		return fmt.Errorf("rename %s: %w", name, err)
+	}
+	if err := ops.SyncDir(dir); err != nil {
+		// The new file is in place; only its durability across a power cut is in doubt.
+		return fmt.Errorf("sync directory %s: %w", dir, err)
+	}
+	return nil
+}
+
+// removeStaleTemps removes temporary files that an earlier save, killed midway, left behind.
+func removeStaleTemps(ops fileOps, dir, base string) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return
+	}
+	for _, e := range ents {
+		if n := e.Name(); strings.HasPrefix(n, base+tempInfix) || strings.HasPrefix(n, base+PrevSuffix+tempInfix) {
+			ops.Remove(filepath.Join(dir, e.Name()))
+		}
+	}
+}
