@@ -70,7 +70,7 @@ type CapacitorSpec struct {
 type DriveSpec struct {
 	StepsPerRev   int     `toml:"steps_per_rev"`
 	Microsteps    int     `toml:"microsteps"`
-	GearRatio     float64 `toml:"gear_ratio"`
+	GearRatio     int     `toml:"gear_ratio"`
 	BacklashSteps float64 `toml:"backlash_steps"`
 	MaxSpeed      float64 `toml:"max_speed_sps"`  // controller's planned top speed, steps/s
 	Accel         float64 `toml:"accel_sps2"`     // controller's planned acceleration, steps/s²
@@ -136,9 +136,9 @@ func DefaultSpec() Spec {
 		Loop: LoopSpec{Turns: 2, DiameterM: 2.3, ConductorM: 0.022, SpacingM: 0.10, ExtraLossOhm: 0.015, StrayPF: 10},
 		Feed: FeedSpec{DesignHz: 2.6e6, OctaveSWR: 1.4},
 		Capacitor: CapacitorSpec{MinPF: 10, MaxPF: 500, Travel: "free", SpanTurns: 0.5,
-			TempPPMPerK: 30, EndMarginPct: 1},
+			TempPPMPerK: 30, EndMarginPct: 0.5},
 		Drive: DriveSpec{StepsPerRev: 200, Microsteps: 16, GearRatio: 50, BacklashSteps: 40,
-			MaxSpeed: 16000, Accel: 60000, PulloutSpeed: 24000, MaxAccel: 150000,
+			MaxSpeed: 16000, Accel: 100000, PulloutSpeed: 24000, MaxAccel: 200000,
 			SettleMS: 15, SettleSteps: 1.5},
 		Coupler: CouplerSpec{CouplingDB: 30, DirectivityDB: 30, LeakPhaseDeg: 60, Detector: "log",
 			SlopeMVPerDB: 25, InterceptDBm: -84, FloorDBm: -75, CeilingDBm: 15,
@@ -229,7 +229,7 @@ func (s Spec) CapacitorModel() (*capacitor.Capacitor, error) {
 
 // StepsPerTurn is the number of microsteps that turn the capacitor shaft once.
 func (s Spec) StepsPerTurn() float64 {
-	return float64(s.Drive.StepsPerRev*s.Drive.Microsteps) * s.Drive.GearRatio
+	return float64(s.Drive.StepsPerRev * s.Drive.Microsteps * s.Drive.GearRatio)
 }
 
 // Calibration is the detectors' calibration as specified (the simulated coupler is built to
@@ -273,8 +273,8 @@ func (s Spec) Validate() error {
 	if d.Microsteps < 1 || d.Microsteps > 256 {
 		add("drive", fmt.Errorf("microsteps %d: want 1 to 256", d.Microsteps))
 	}
-	if !(d.GearRatio >= 1) || d.GearRatio > 1000 {
-		add("drive", fmt.Errorf("gear_ratio %g: want 1 to 1000", d.GearRatio))
+	if d.GearRatio < 1 || d.GearRatio > 1000 {
+		add("drive", fmt.Errorf("gear_ratio %d: want 1 to 1000", d.GearRatio))
 	}
 	if d.BacklashSteps < 0 || d.BacklashSteps > 5000 {
 		add("drive", fmt.Errorf("backlash_steps %g: want 0 to 5000", d.BacklashSteps))
@@ -313,4 +313,12 @@ func (s Spec) Validate() error {
 	return errors.Join(errs...)
 }
 
-func fmtSpec(s Spec) string { return fmt.Sprintf("%+v", s) }
+// fmtSpec prints a spec in full, following the home switch pointer, for comparisons.
+func fmtSpec(s Spec) string {
+	home := "none"
+	if s.Drive.Home != nil {
+		home = fmt.Sprintf("%+v", *s.Drive.Home)
+	}
+	s.Drive.Home = nil
+	return fmt.Sprintf("%+v home=%s", s, home)
+}

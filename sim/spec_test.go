@@ -87,14 +87,17 @@ func BenchmarkSWREvaluation(b *testing.B) {
 	_ = sum
 }
 
-func TestDefaultConfigFileIsDefaultSpec(t *testing.T) {
-	s, err := LoadSpec("../configs/station-default.toml")
-	if err != nil {
-		t.Fatal(err)
+func TestConfigFilesArePresets(t *testing.T) {
+	for name, want := range Presets() {
+		s, err := LoadSpec("../configs/station-" + name + ".toml")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got, want := fmtSpec(s), fmtSpec(want); got != want {
+			t.Errorf("configs/station-%s.toml drifted from the built-in preset:\n file %s\n code %s", name, got, want)
+		}
 	}
-	d := DefaultSpec()
-	// Compare through TOML-independent fields: the printed form of the whole struct.
-	if got, want := fmtSpec(s), fmtSpec(d); got != want {
-		t.Errorf("configs/station-default.toml drifted from DefaultSpec:\n file %s\n code %s", got, want)
+	if _, err := Preset("nonesuch"); err == nil {
+		t.Error("unknown preset accepted")
 	}
 }

@@ -300,22 +300,51 @@ func (a *Axis) rebase(p Steps) {
 // SoftLimits returns the inclusive range moves may target.
 func (a *Axis) SoftLimits() (lo, hi Steps) { return a.o.Min, a.o.Max }
 
-// PositionAt estimates the position at instant t, in steps with a fraction, for a reading taken
-// while the motor moved: the latest move's ideal trajectory (with any ramped stop) at t, its start
-// position for earlier instants, and never beyond the pulses counted once the move has ended.
-// The fraction is where between two pulses the trajectory was; a real drive follows the plan to
-// within its step timing, a fraction of a step at the speeds used while sampling.
+// PositionAt is the position at instant t, for a reading taken while the motor moved: the
+// pulses the latest move's plan (with any ramped stop) had emitted by t, its start position for
+// earlier instants, and never beyond the pulses counted once the move has ended. A real drive
+// follows the plan to within its step timing. It is a whole number of steps (float64 for the
+// arithmetic of the callers that place readings).
 func (a *Axis) PositionAt(t time.Time) float64 {
 	a.mu.Lock()
 	defer a.mu.Unlock()
 	if a.t0.IsZero() {
 		return float64(a.pos)
 	}
-	x := a.prof.positionAt(t.Sub(a.t0))
+	// The motor stands at the last pulse until the next: the position at t is the count of
+	// pulses emitted by then, a whole number of steps.
+	x := float64(a.prof.StepsAt(t.Sub(a.t0)))
 	if !a.moving {
 		x = min(x, float64(a.counted))
 	}
 	return float64(a.from) + float64(a.dir)*x
+}
+
+// Plan is the profile a move of n steps at up to speed (0 = MaxSpeed) would follow: for
+// estimating how long a move takes.
+func (a *Axis) Plan(n Steps, speed float64) (Profile, error) {
+	if speed <= 0 || speed > a.o.MaxSpeed {
+		speed = a.o.MaxSpeed
+	}
+	return Plan(abs(n), speed, a.o.Accel)
+}
+
+// Settle is the settling time waited after a move.
+func (a *Axis) Settle() time.Duration { return a.o.Settle }
+
+// MoveThrough moves to target at up to speed (0 = MaxSpeed) without waiting for the mechanics
+// to settle: for a leg that another move follows at once.
+func (a *Axis) MoveThrough(ctx context.Context, target Steps, speed float64) error {
+	if err := a.Start(target, speed); err != nil {
+		return err
+	}
+	if _, _, err := a.follow(ctx, nil, false); err != nil {
+		return fmt.Errorf("axis: move through %d: %w", target, err)
+	}
+	if pos := a.Position(); pos != target {
+		return fmt.Errorf("axis: move through %d: %w at %d", target, ErrStopped, pos)
+	}
+	return nil
 }
 
 // rampStop asks the drive for a controlled stop and applies the same stop to the plan.
@@ -543,15 +572,16 @@ func (a *Axis) poll() error {
 // Wait begins a ramped stop (which never passes the move's target) and returns ctx's error; the
 // axis may still be moving then, and a later Poll or Wait sees the stop through.
 func (a *Axis) Wait(ctx context.Context) error {
-	if _, _, err := a.follow(ctx, nil); err != nil {
+	if _, _, err := a.follow(ctx, nil, true); err != nil {
 		return fmt.Errorf("axis: wait: %w", err)
 	}
 	return nil
 }
 
-// follow polls the running move to its end and settles. With until, it checks until at every
-// poll and, the first time it reports true, begins a ramped stop and notes the position.
-func (a *Axis) follow(ctx context.Context, until func() (bool, error)) (fired bool, at Steps, err error) {
+// follow polls the running move to its end and, with settle, waits the settling time. With
+// until, it checks until at every poll and, the first time it reports true, begins a ramped
+// stop and notes the position.
+func (a *Axis) follow(ctx context.Context, until func() (bool, error), settle bool) (fired bool, at Steps, err error) {
 	for {
 		a.mu.Lock()
 		err := a.poll()
@@ -582,7 +612,7 @@ func (a *Axis) follow(ctx context.Context, until func() (bool, error)) (fired bo
 	a.mu.Lock()
 	unsettled := a.unsettled
 	a.mu.Unlock()
-	if unsettled {
+	if unsettled && settle {
 		if err := a.clk.Sleep(ctx, a.o.Settle); err != nil {
 			return fired, at, fmt.Errorf("settle: %w", err)
 		}
@@ -622,7 +652,8 @@ func (a *Axis) Approach(ctx context.Context, target Steps) error {
 	pre, need := a.runUp(target)
 	a.mu.Unlock()
 	if need {
-		if err := a.MoveTo(ctx, pre, 0); err != nil {
+		// The run-up leg needs no settling: the final leg follows at once and settles.
+		if err := a.MoveThrough(ctx, pre, 0); err != nil {
 			return fmt.Errorf("axis: approach %d: run-up: %w", target, err)
 		}
 	}

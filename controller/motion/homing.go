@@ -117,7 +117,7 @@ func (a *Axis) leg(ctx context.Context, dir Direction, n Steps, speed float64, u
 	if err != nil {
 		return false, 0, err
 	}
-	fired, at, err := a.follow(ctx, until)
+	fired, at, err := a.follow(ctx, until, true)
 	if err == nil && !fired {
 		if pos := a.Position(); pos != target {
 			err = fmt.Errorf("%w at %d, leg to %d", ErrStopped, pos, target)

@@ -9,7 +9,9 @@ import (
 )
 
 // Reading is one calibrated sample of the directional coupler: forward and reflected power on
-// the feed line, and when the sample was taken (the middle of its conversion).
+// the feed line, and when it was taken: the middle of the reflected channel's conversion, since
+// the reflected power is what changes across a dip (the forward power hardly changes as the
+// capacitor turns), so that is the instant a reading taken on the move describes.
 type Reading struct {
 	At        time.Time
 	Forward   physic.Power

@@ -157,7 +157,8 @@ func (c *Coupler) Read(ctx context.Context) (sense.Voltages, error) {
 		if err := c.clk.Sleep(ctx, conv/2+half); err != nil {
 			return sense.Voltages{}, err
 		}
-		out.At = c.clk.Now().Add(-half) // between the two conversions
+		// the reflected channel's instant: it is the one that changes across a dip
+		out.At = c.clk.Now()
 		pf, g = c.line()
 		_, ref := c.Detected(pf, g)
 		out.Reflected = c.convert(c.opts.Reflected.Volts(ref))

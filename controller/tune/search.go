@@ -1,0 +1,874 @@
+package tune
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+
+	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/memmap"
+	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/sense"
+)
+
+// errNotInWindow: a fine sweep saw no dip, or only its edge; the caller scans wider.
+var errNotInWindow = errors.New("dip not within the fine sweep")
+
+// Tune pre-positions the loop from the memory map at once (no RF), and with req.RF tunes it
+// with a carrier: coarse scan if the map is not sure enough, fine sweep through the dip, curve
+// fit, final approach with the gear play taken up, verify reading. A good tune teaches the map.
+func (t *Tuner) Tune(ctx context.Context, req Request) Result {
+	p := t.begin(ctx, req.Freq)
+	if req.Freq <= 0 {
+		return p.finish("", fmt.Errorf("tune: frequency %v: want more than 0", req.Freq))
+	}
+	if err := t.d.Axis.Fault(); err != nil || t.m.state == Faulted {
+		return p.finish("", errors.Join(fmt.Errorf("tune: %w: reset needed", motion.ErrFault), err))
+	}
+	if !t.d.Axis.Trusted() {
+		switch {
+		case t.o.HasHome:
+			if err := p.home(); err != nil {
+				return p.finish("", err)
+			}
+		case t.o.HardStops || !req.RF:
+			return p.finish("", fmt.Errorf("tune: %w (%s)", ErrNeedsHoming, t.d.Axis.Snapshot().Distrust))
+		}
+	}
+	pred := t.predict(req.Freq)
+	p.res.Prediction = &pred
+	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: req.Freq, Pos: pred.Pos})
+	if pred.Trusted && pred.Source != "none" {
+		if err := p.to(Positioning); err != nil {
+			return p.finish("", err)
+		}
+		target := p.target(pred.Pos)
+		if err := p.approach("preposition", target); err != nil {
+			return p.finish("", err)
+		}
+		p.res.Prepositioned, p.res.PrePos = true, target
+		t.emit(Event{Kind: KindPositioned, Pos: float64(target), Freq: req.Freq})
+	}
+	if !req.RF {
+		return p.finish(Positioned, nil)
+	}
+	if u, ok := direct(pred); ok {
+		// Go below the fine sweep's start before the carrier goes on (that move needs no RF);
+		// the sweep takes up the play on its way up.
+		_, _, start, _ := p.window(pred.Pos, u, pred.Width, motion.Up)
+		lmin, _ := t.d.Axis.SoftLimits()
+		if err := p.moveThrough("fine", max(start-t.runUp(), lmin)); err != nil {
+			return p.finish("", err)
+		}
+	}
+	if err := p.carrierOn(); err != nil {
+		return p.finish("", err)
+	}
+	var fit dipFit
+	var err error
+	if !t.d.Axis.Trusted() {
+		fit, err = p.reference(pred)
+	} else {
+		fit, err = p.search(pred)
+	}
+	if err != nil {
+		return p.finish("", err)
+	}
+	if err := p.settle(fit, pred); err != nil {
+		return p.finish("", err)
+	}
+	p.learn(pred)
+	return p.finish(Tuned, nil)
+}
+
+// home runs the homing sequence.
+func (p *op) home() error {
+	if err := p.to(Homing); err != nil {
+		return err
+	}
+	if err := p.t.d.Axis.Home(p.ctx); err != nil {
+		return fmt.Errorf("home: %w", err)
+	}
+	p.t.surprise = nil
+	return nil
+}
+
+// Home runs the homing sequence on its own.
+func (t *Tuner) Home(ctx context.Context) Result {
+	p := t.begin(ctx, 0)
+	if err := p.home(); err != nil {
+		return p.finish("", err)
+	}
+	return p.finish(Homed, nil)
+}
+
+// target rounds a position and keeps it where an approach can take up the gear play within the
+// soft limits.
+func (p *op) target(pos float64) motion.Steps {
+	lo, hi := p.t.d.Axis.SoftLimits()
+	lo += p.t.runUp()
+	return min(max(motion.Steps(math.Round(pos)), lo), hi)
+}
+
+// runUp is the travel that certainly takes up the gear play: the measured play once calibrated,
+// else the nominal bound.
+func (t *Tuner) runUp() motion.Steps {
+	b := t.d.Axis.Snapshot().Backlash
+	if !t.calibrated {
+		b = max(b, t.o.NominalBacklash)
+	}
+	return b + 8
+}
+
+// clampPos keeps a position inside the soft limits.
+func (p *op) clampPos(pos float64) float64 {
+	lo, hi := p.t.d.Axis.SoftLimits()
+	return math.Min(math.Max(pos, float64(lo)), float64(hi))
+}
+
+func (p *op) approach(stage string, target motion.Steps) error {
+	t := p.t
+	t.emit(Event{Kind: KindMove, Stage: stage, Pos: float64(t.d.Axis.Position()), Target: target, Freq: p.res.Freq})
+	if err := t.d.Axis.Approach(p.ctx, target); err != nil {
+		return err
+	}
+	return p.check()
+}
+
+func (p *op) moveThrough(stage string, target motion.Steps) error {
+	t := p.t
+	t.emit(Event{Kind: KindMove, Stage: stage, Pos: float64(t.d.Axis.Position()), Target: target, Freq: p.res.Freq})
+	if err := t.d.Axis.MoveThrough(p.ctx, target, 0); err != nil {
+		return err
+	}
+	return p.check()
+}
+
+func (p *op) moveTo(stage string, target motion.Steps, speed float64) error {
+	t := p.t
+	t.emit(Event{Kind: KindMove, Stage: stage, Pos: float64(t.d.Axis.Position()), Target: target, Speed: speed, Freq: p.res.Freq})
+	if err := t.d.Axis.MoveTo(p.ctx, target, speed); err != nil {
+		return err
+	}
+	return p.check()
+}
+
+// search finds the dip around the prediction: straight to the fine sweep when the map is sure
+// enough, otherwise a coarse scan first, widening the window up to the whole travel.
+func (p *op) search(pred Prediction) (dipFit, error) {
+	w := pred.Width
+	noise, err := p.measureNoise()
+	if err != nil {
+		return dipFit{}, err
+	}
+	lo, hi := p.t.d.Axis.SoftLimits()
+	centre, half := (float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2
+	if pred.Source != "none" && pred.Trusted {
+		if pred.Pos+3*pred.Sigma < float64(lo) || pred.Pos-3*pred.Sigma > float64(hi) {
+			return dipFit{}, fmt.Errorf("%w: the dip is expected at %.0f±%.0f, outside the soft limits %d–%d",
+				ErrOutOfRange, pred.Pos, pred.Sigma, lo, hi)
+		}
+		if u, ok := direct(pred); ok {
+			f, err := p.refine(pred.Pos, u, w, noise, motion.Up, true)
+			if err == nil {
+				return f, nil
+			}
+			if !errors.Is(err, errNotInWindow) {
+				return dipFit{}, err
+			}
+		}
+		centre, half = pred.Pos, 3*pred.Sigma+3*w
+	}
+	for {
+		c, err := p.coarse(centre, half, w, noise)
+		if err != nil {
+			return dipFit{}, err
+		}
+		f, err := p.refineAround(c, w, noise)
+		if !errors.Is(err, errNotInWindow) || len(p.rejects) >= 5 {
+			return f, err
+		}
+		// A false alarm: the fine sweep saw no dip there. Scan on, ignoring that spot.
+		u := c.uncertainty + 2.5*w
+		p.rejects = append(p.rejects, [2]float64{c.pos - u, c.pos + u})
+		p.t.emit(Event{Kind: KindNote, Text: fmt.Sprintf("no dip near %.0f after all: scanning on", c.pos)})
+	}
+}
+
+// refineAround runs the fine sweep around a coarse estimate, following the dip if the sweep
+// shows it lies beyond.
+func (p *op) refineAround(c coarseHit, w float64, noise noiseLevel) (dipFit, error) {
+	u := c.uncertainty
+	for try := range 3 {
+		f, err := p.refine(c.pos, u, w, noise, motion.Up, true)
+		if err == nil {
+			return f, nil
+		}
+		var edge *edgeError
+		if !errors.As(err, &edge) || try == 2 {
+			return dipFit{}, err
+		}
+		c.pos, u = edge.toward, 2*w+edge.spacing
+	}
+	return dipFit{}, fmt.Errorf("%w after three sweeps", ErrNoDip)
+}
+
+// edgeError: the fine sweep's deepest point lay at its end, so the dip is further on.
+type edgeError struct {
+	toward  float64
+	spacing float64
+}
+
+func (e *edgeError) Error() string {
+	return fmt.Sprintf("the dip lies beyond the sweep, near %.0f", e.toward)
+}
+func (e *edgeError) Unwrap() error { return errNotInWindow }
+
+// noiseLevel is the measured reading noise.
+type noiseLevel struct {
+	rel   float64 // standard deviation of ln |Γ|²
+	abs   float64 // standard deviation of |Γ|² itself where it was measured
+	gamma float64 // the |Γ|² it was measured at
+}
+
+// flank is the noise to expect on the dip's flanks, where the fit gets its information: the
+// relative noise of a log detector at |Γ|² about 0.3, or an absolute noise floor, whichever
+// is the larger.
+func (n noiseLevel) flank() float64 {
+	if n.gamma > 0.3 {
+		// measured off the dip, where both laws look alike: take the log detector's
+		return 0.3 * n.rel
+	}
+	return math.Max(0.3*n.rel, n.abs)
+}
+
+func (p *op) measureNoise() (noiseLevel, error) {
+	const n = 8
+	var g []float64
+	for range n {
+		s, r, err := p.read("noise")
+		if err != nil {
+			return noiseLevel{}, err
+		}
+		if r.Forward >= p.t.o.MinForward {
+			g = append(g, s.Gamma2)
+		}
+	}
+	if len(g) < 3 {
+		return noiseLevel{}, fmt.Errorf("%w while measuring the noise", ErrCarrierLost)
+	}
+	var nl noiseLevel
+	var ml, m float64
+	for _, v := range g {
+		ml += math.Log(math.Max(v, 1e-6))
+		m += v
+	}
+	ml /= float64(len(g))
+	m /= float64(len(g))
+	var vl, v2 float64
+	for _, v := range g {
+		d := math.Log(math.Max(v, 1e-6)) - ml
+		vl += d * d
+		v2 += (v - m) * (v - m)
+	}
+	k := float64(len(g) - 1)
+	nl.rel, nl.abs, nl.gamma = math.Sqrt(vl/k), math.Sqrt(v2/k), m
+	if m > 0.6 && p.baseline == 1 {
+		p.baseline = m // most likely off the dip: the coupler's own off-dip reading
+	}
+	// six readings can come out alike by chance on a quantised converter: keep a floor
+	nl.rel = math.Max(nl.rel, 0.002)
+	nl.abs = math.Max(nl.abs, 2e-4)
+	p.t.emit(Event{Kind: KindNoise, Freq: p.res.Freq, Gamma2: m,
+		Text: fmt.Sprintf("reading noise %.2f %% relative, %.4f absolute at |Γ|² %.3f", 100*nl.rel, nl.abs, m)})
+	return nl, nil
+}
+
+// coarseHit is where the coarse scan saw the dip, in final-approach coordinates.
+type coarseHit struct {
+	pos         float64
+	uncertainty float64
+}
+
+// coarse scans the window centre±half at a speed that puts ScanDensity readings within a dip
+// half-width, stopping as soon as a dip has clearly been passed; if the window holds none it
+// grows threefold, up to the whole travel, scanning only what it has not yet seen.
+func (p *op) coarse(centre, half, w float64, noise noiseLevel) (coarseHit, error) {
+	t := p.t
+	if err := p.to(Scanning); err != nil {
+		return coarseHit{}, err
+	}
+	spacing := math.Max(w/t.o.ScanDensity, 1)
+	speed := spacing / p.readingTime().Seconds()
+	// A dip must stand clear of the noise: a rise in the absorbed share 1−|Γ|² of eight
+	// standard deviations (off the dip the noise is the absolute noise at |Γ|² near one).
+	thr := math.Max(0.12, 8*math.Max(noise.abs, noise.rel*noise.gamma))
+	amin, amax := p.t.d.Axis.SoftLimits()
+	slo, shi := math.NaN(), math.NaN() // what has been scanned
+	for {
+		lo, hi := p.clampPos(centre-half), p.clampPos(centre+half)
+		for _, seg := range p.segments(lo, hi, slo, shi) {
+			hit, ok, err := p.scanSegment(seg[0], seg[1], w, speed, thr)
+			if err != nil {
+				return coarseHit{}, err
+			}
+			if ok {
+				hit.uncertainty = spacing + 2 + p.backlashUncertainty()
+				t.emit(Event{Kind: KindDip, Pos: hit.pos, Freq: p.res.Freq,
+					Text: fmt.Sprintf("dip near %.0f", hit.pos)})
+				return hit, nil
+			}
+		}
+		if lo <= float64(amin) && hi >= float64(amax) {
+			return coarseHit{}, fmt.Errorf("%w over the whole travel %d–%d", ErrNoDip, amin, amax)
+		}
+		if !math.IsNaN(slo) {
+			lo, hi = math.Min(lo, slo), math.Max(hi, shi)
+		}
+		slo, shi = lo, hi
+		half = 3*half + w
+		p.res.Widened++
+		t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("no dip yet: widening the scan to %.0f–%.0f",
+			p.clampPos(centre-half), p.clampPos(centre+half))})
+		if err := p.to(Scanning); err != nil {
+			return coarseHit{}, err
+		}
+	}
+}
+
+// backlashUncertainty is how far a position found scanning downward may be off once converted
+// to final-approach coordinates: half the nominal play until a calibration has measured it.
+func (p *op) backlashUncertainty() float64 {
+	if p.t.calibrated {
+		return 2
+	}
+	return float64(p.t.o.NominalBacklash) / 2
+}
+
+// segments plans the scans that cover [lo, hi] minus the already scanned [slo, shi] (NaN when
+// nothing is), starting at the end nearest the motor.
+func (p *op) segments(lo, hi, slo, shi float64) [][2]float64 {
+	pos := float64(p.t.d.Axis.Position())
+	if math.IsNaN(slo) {
+		switch {
+		case pos <= lo:
+			return [][2]float64{{lo, hi}}
+		case pos >= hi:
+			return [][2]float64{{hi, lo}}
+		case pos-lo < hi-pos:
+			return [][2]float64{{pos, lo}, {lo, hi}}
+		default:
+			return [][2]float64{{pos, hi}, {hi, lo}}
+		}
+	}
+	var below, above [][2]float64
+	if lo < slo {
+		below = [][2]float64{{slo, lo}}
+	}
+	if hi > shi {
+		above = [][2]float64{{shi, hi}}
+	}
+	if math.Abs(pos-slo) <= math.Abs(pos-shi) {
+		return append(below, above...)
+	}
+	return append(above, below...)
+}
+
+// scanSegment moves to from and scans to to, watching for a dip.
+func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, error) {
+	t := p.t
+	ax := t.d.Axis
+	dir := motion.Up
+	if to < from {
+		dir = motion.Down
+	}
+	f, e := motion.Steps(math.Round(from)), motion.Steps(math.Round(to))
+	if ax.Position() != f {
+		if err := p.moveTo("coarse", f, 0); err != nil {
+			return coarseHit{}, false, err
+		}
+	}
+	// After a reversal the shaft stands still until the play is taken up: readings there
+	// belong to the old position.
+	skip := float64(t.runUp())
+	if st := ax.Snapshot(); st.Play == dir {
+		skip = 0
+	}
+	t.emit(Event{Kind: KindMove, Stage: "coarse", Pos: float64(f), Target: e, Speed: speed, Freq: p.res.Freq})
+	if err := ax.Start(e, speed); err != nil {
+		return coarseHit{}, false, err
+	}
+	b := float64(ax.Snapshot().Backlash)
+	upEquiv := func(pos float64) float64 {
+		if dir == motion.Down {
+			return pos + b
+		}
+		return pos
+	}
+	// A dip is two readings or more above the threshold within a few half-widths of each
+	// other: a single noise spike is not one.
+	// Off the dip the coupler does not read |Γ|² = 1 exactly: its leakage adds to or takes
+	// from the reflection. The absorbed share is measured from the running median of the
+	// segment's readings, which the few readings in a dip do not move.
+	aMax, posMax := 0.0, math.NaN()
+	above, lastAbove := 0, math.Inf(-1)
+	base := newMedian(32, p.baseline)
+	for {
+		s, _, err := p.read("coarse")
+		if err != nil {
+			return coarseHit{}, false, err
+		}
+		if math.Abs(s.Pos-from) >= skip && !p.rejected(upEquiv(s.Pos)) {
+			a := base.value() - s.Gamma2
+			base.add(s.Gamma2)
+			if a >= thr {
+				if math.Abs(s.Pos-lastAbove) > 4*w+spacingOf(speed, p) {
+					above = 0
+				}
+				above++
+				lastAbove = s.Pos
+			}
+			if a > aMax && (a < thr || above >= 1) {
+				aMax, posMax = a, s.Pos
+			}
+			if above >= 2 && a < aMax/3 && math.Abs(s.Pos-posMax) > 2*w {
+				if err := ax.StopMove(p.ctx); err != nil {
+					return coarseHit{}, false, err
+				}
+				return coarseHit{pos: upEquiv(posMax)}, true, nil
+			}
+		}
+		if _, moving, _ := ax.Poll(); !moving {
+			break
+		}
+	}
+	if err := ax.Wait(p.ctx); err != nil {
+		return coarseHit{}, false, err
+	}
+	if base.n > 8 {
+		p.baseline = base.value()
+	}
+	if above >= 2 {
+		return coarseHit{pos: upEquiv(posMax)}, true, nil
+	}
+	return coarseHit{}, false, nil
+}
+
+// median is a running median of the last few values, seeded with a first guess.
+type median struct {
+	buf  []float64
+	n    int
+	seed float64
+	tmp  []float64
+}
+
+func newMedian(size int, seed float64) *median {
+	return &median{buf: make([]float64, size), tmp: make([]float64, 0, size), seed: seed}
+}
+
+func (m *median) add(v float64) {
+	m.buf[m.n%len(m.buf)] = v
+	m.n++
+}
+
+func (m *median) value() float64 {
+	k := min(m.n, len(m.buf))
+	if k < 5 {
+		return m.seed
+	}
+	m.tmp = append(m.tmp[:0], m.buf[:k]...)
+	sort.Float64s(m.tmp)
+	return m.tmp[k/2]
+}
+
+// spacingOf is the distance between readings on a move at speed.
+func spacingOf(speed float64, p *op) float64 { return speed * p.readingTime().Seconds() }
+
+// rejected says whether a coarse hit near pos was already swept finely and held no dip.
+func (p *op) rejected(pos float64) bool {
+	for _, r := range p.rejects {
+		if pos >= r[0] && pos <= r[1] {
+			return true
+		}
+	}
+	return false
+}
+
+// window is the span a fine sweep covers around centre, and where it starts and ends.
+func (p *op) window(centre, u, w float64, dir motion.Direction) (lo, hi float64, start, end motion.Steps) {
+	lo = p.clampPos(centre - u - 2.2*w)
+	hi = p.clampPos(centre + u + 2.2*w)
+	if lmin, _ := p.t.d.Axis.SoftLimits(); lo < float64(lmin+p.t.runUp()) && dir == motion.Up {
+		lo = float64(lmin + p.t.runUp())
+	}
+	start, end = motion.Steps(math.Floor(lo)), motion.Steps(math.Ceil(hi))
+	if dir == motion.Down {
+		start, end = end, start
+	}
+	return lo, hi, start, end
+}
+
+// direct says whether the prediction is good enough to go straight to the fine sweep, and
+// with what uncertainty.
+func direct(pred Prediction) (u float64, ok bool) {
+	if pred.Source == "none" || !pred.Trusted {
+		return 0, false
+	}
+	u = 3*pred.Sigma + 1
+	return u, u <= 4*pred.Width
+}
+
+// refine sweeps slowly through [centre−u−2.5w, centre+u+2.5w] in direction dir, reading on the
+// move, and fits the resonance. The sweep's speed is sized from the measured noise so that the
+// fitted centre reaches Options.CentreNoise.
+func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction, changeState bool) (dipFit, error) {
+	t := p.t
+	ax := t.d.Axis
+	if changeState {
+		if err := p.to(Refining); err != nil {
+			return dipFit{}, err
+		}
+	}
+	lo, hi, start, end := p.window(centre, u, w, dir)
+	if dir == motion.Down {
+		// take up the play downward: run past the start, then come back down to it
+		_, lmax := ax.SoftLimits()
+		over := min(start+t.runUp(), lmax)
+		if ax.Position() < over {
+			if err := p.moveTo("fine", over, 0); err != nil {
+				return dipFit{}, err
+			}
+		}
+		if err := p.moveTo("fine", start, 0); err != nil {
+			return dipFit{}, err
+		}
+	}
+	// Samples the fit needs within ±w of the centre for the centre's standard error to reach
+	// CentreNoise: σ_c ≈ 1.5·w·σ/√N (measured on simulated sweeps; see fit tests).
+	// A wide dip forgives more: an error δ costs an SWR of about 1 + 2δ/w, so the target
+	// grows with the width beyond CentreNoise.
+	sigma := noise.flank() / 0.3
+	target := math.Max(t.o.CentreNoise, 0.008*w)
+	nCore := math.Pow(1.5*w*sigma/target, 2)
+	nCore = math.Min(math.Max(nCore, 10), 80)
+	spacing := math.Min(math.Max(2*w/nCore, 0.05), w/4)
+	speed := math.Max(spacing/p.readingTime().Seconds(), 5)
+	from := start
+	if dir == motion.Up {
+		st := ax.Snapshot()
+		if st.Play != motion.Up || st.Position > start {
+			// The play must be taken up before the sweep: either a fast run-up leg and a
+			// settled start, or the sweep itself begins a run-up below and its first readings
+			// are dropped, whichever is quicker.
+			lmin, _ := ax.SoftLimits()
+			pre := max(start-t.runUp(), lmin)
+			leg, err := ax.Plan(start-pre, 0)
+			if err != nil {
+				return dipFit{}, err
+			}
+			if float64(start-pre)/speed < (leg.Duration() + ax.Settle()).Seconds() {
+				if err := p.moveThrough("fine", pre); err != nil {
+					return dipFit{}, err
+				}
+				from = pre
+			} else if err := p.approach("fine", start); err != nil {
+				return dipFit{}, err
+			}
+		}
+	}
+	t.emit(Event{Kind: KindMove, Stage: "fine", Pos: float64(from), Target: end, Speed: speed, Freq: p.res.Freq})
+	if err := ax.Start(end, speed); err != nil {
+		return dipFit{}, err
+	}
+	var samples []sample
+	aMax, posMax := 0.0, 0.0
+	for {
+		s, _, err := p.read("fine")
+		if err != nil {
+			return dipFit{}, err
+		}
+		if dir == motion.Up && s.Pos < float64(start) {
+			continue // still taking up the play
+		}
+		samples = append(samples, s)
+		a := 1 - s.Gamma2
+		if a > aMax {
+			aMax, posMax = a, s.Pos
+		}
+		beyond := (s.Pos - posMax) * float64(dir)
+		if aMax > 0.3 && beyond > 2*w && a < 0.2*aMax {
+			if err := ax.StopMove(p.ctx); err != nil {
+				return dipFit{}, err
+			}
+			break
+		}
+		if _, moving, _ := ax.Poll(); !moving {
+			break
+		}
+	}
+	if err := ax.Wait(p.ctx); err != nil {
+		return dipFit{}, err
+	}
+	if aMax < 0.2 {
+		return dipFit{}, fmt.Errorf("%w: deepest reading |Γ|² %.2f", errNotInWindow, 1-aMax)
+	}
+	// The deepest point at either end of a sweep that did not reach the end of the travel:
+	// the dip lies beyond.
+	lim0, lim1 := ax.SoftLimits()
+	nearLo := posMax-lo < w && lo > float64(lim0+t.runUp())+w
+	nearHi := hi-posMax < w && hi < float64(lim1)-w
+	if nearLo || nearHi {
+		toward := posMax - 2*w
+		if nearHi {
+			toward = posMax + 2*w
+		}
+		return dipFit{}, &edgeError{toward: toward, spacing: spacing}
+	}
+	fit, err := fitDip(samples, w, noise.rel)
+	if err != nil {
+		return dipFit{}, err
+	}
+	return fit, nil
+}
+
+// settle makes the final approach to the fitted centre and verifies it, sweeping once more
+// if the verify reading is well above what the fit promised.
+func (p *op) settle(fit dipFit, pred Prediction) error {
+	t := p.t
+	for attempt := 0; ; attempt++ {
+		if err := p.to(Approaching); err != nil {
+			return err
+		}
+		target := p.target(fit.Centre)
+		if err := p.approach("approach", target); err != nil {
+			return err
+		}
+		if err := p.to(Verifying); err != nil {
+			return err
+		}
+		g := 0.0
+		const n = 3
+		for range n {
+			s, _, err := p.read("verify")
+			if err != nil {
+				return err
+			}
+			g += s.Gamma2
+		}
+		g /= n
+		swr := sense.SWRFromGamma2(g)
+		want := sense.SWRFromGamma2(math.Max(fit.MinGamma2, 0))
+		p.res.SWR = swr
+		p.res.Fit = t.report(fit, pred, p.res.Freq)
+		t.emit(Event{Kind: KindFit, Fit: p.res.Fit, Pos: fit.Centre, Freq: p.res.Freq, SWR: p.res.Fit.MinSWR})
+		if swr <= want*1.1+0.15 || attempt == 1 {
+			if swr > want*1.1+0.15 {
+				t.note(p.res, "verify SWR %.2f stays above the fitted %.2f", swr, want)
+			}
+			return nil
+		}
+		t.note(p.res, "verify SWR %.2f well above the fitted %.2f: sweeping again", swr, want)
+		noise, err := p.measureNoise()
+		if err != nil {
+			return err
+		}
+		w := pred.Width
+		if fit.HalfWidth > 0 {
+			w = fit.HalfWidth
+		}
+		f, err := p.refine(fit.Centre, 2+w, w, noise, motion.Up, true)
+		if err != nil {
+			return err
+		}
+		fit = f
+	}
+}
+
+// report turns a fit into what the operator sees: the loaded Q and bandwidth follow from the
+// fitted width and the map's slope.
+func (t *Tuner) report(f dipFit, pred Prediction, freq physic.Frequency) *FitReport {
+	r := &FitReport{Method: f.Method, Centre: f.Centre, HalfWidth: f.HalfWidth, Chi2: f.Chi2, Samples: f.N,
+		MinSWR: sense.SWRFromGamma2(math.Max(f.MinGamma2, 0))}
+	if f.HalfWidth > 0 && pred.Slope != 0 {
+		r.Bandwidth = 2 * f.HalfWidth / math.Abs(pred.Slope)
+		r.QLoaded = float64(freq) / float64(physic.Hertz) / r.Bandwidth
+	}
+	return r
+}
+
+// learn teaches the map the tune just made, unless the dip turned up so far from the
+// prediction that the position itself may have slipped: such a tune is held back until the
+// next one shows which it was. Two surprises in a row with the same offset are lost steps:
+// the axis is re-referenced by that offset (or, with a home switch, marked for homing).
+func (p *op) learn(pred Prediction) {
+	t := p.t
+	r := p.res
+	r.Pos = t.d.Axis.Position()
+	temp, hasTemp := t.temperature()
+	pt := memmap.Point{Freq: r.Freq, Pos: r.Pos, At: t.d.Clock.Now(), SWR: math.Max(r.SWR, 1)}
+	if hasTemp {
+		pt.Temp, pt.HasTemp = *temp, true
+	}
+	if r.Fit != nil {
+		pt.Q = r.Fit.QLoaded
+	}
+	delta := float64(r.Pos) - pred.Pos
+	far := pred.Source == memmap.SourceMap && math.Abs(delta) > math.Max(t.o.SlipLimit*pred.Sigma, 4*pred.Width+4)
+	prev := t.surprise
+	t.surprise = nil
+	switch {
+	case far && prev != nil && math.Abs(delta-prev.delta) <= 0.2*math.Abs(delta)+2*pred.Width+2:
+		shift := motion.Steps(math.Round((delta + prev.delta) / 2))
+		r.Shift = shift
+		if t.o.HasHome {
+			t.d.Axis.Distrust(fmt.Sprintf("dips found %d steps from the map twice running", shift))
+			t.note(r, "dips turned up %d steps from the map twice running: lost steps; homing before the next tune", shift)
+		} else {
+			t.d.Axis.Reference(t.d.Axis.Position() - shift)
+			t.note(r, "dips turned up %d steps from the map twice running: lost steps; position re-referenced by %d", shift, -shift)
+			prev.pt.Pos -= shift
+			pt.Pos -= shift
+			t.learnPoint(prev.pt)
+			t.learnPoint(pt)
+		}
+	case far:
+		t.surprise = &surprise{pt: pt, delta: delta}
+		t.note(r, "dip %.0f steps from the map's prediction (σ %.1f): held back until the next tune", delta, pred.Sigma)
+	default:
+		if prev != nil {
+			t.learnPoint(prev.pt)
+		}
+		t.learnPoint(pt)
+	}
+}
+
+func (t *Tuner) learnPoint(pt memmap.Point) {
+	if err := t.d.Map.Learn(pt); err != nil && !errors.Is(err, memmap.ErrSuperseded) {
+		t.log.Warn("memory map refused a point", "freq", pt.Freq, "pos", pt.Pos, "err", err)
+	}
+}
+
+// reference finds the dip with the position untrusted (a freely turning capacitor with no
+// switch) and re-references the axis so that the dip lands where the map has it.
+func (p *op) reference(pred Prediction) (dipFit, error) {
+	t := p.t
+	if err := p.to(Referencing); err != nil {
+		return dipFit{}, err
+	}
+	if pred.Source != memmap.SourceMap && pred.Source != memmap.SourceAnchored {
+		return dipFit{}, fmt.Errorf("re-reference at %v: %w", p.res.Freq, ErrNoPrediction)
+	}
+	ax := t.d.Axis
+	ax.Reference(ax.Position()) // provisional: the search needs to move
+	noise, err := p.measureNoise()
+	if err != nil {
+		return dipFit{}, err
+	}
+	lo, hi := ax.SoftLimits()
+	c, err := p.coarse((float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2, pred.Width, noise)
+	if err != nil {
+		ax.Distrust("re-reference failed")
+		return dipFit{}, err
+	}
+	fit, err := p.refineAround(c, pred.Width, noise)
+	if err != nil {
+		ax.Distrust("re-reference failed")
+		return dipFit{}, err
+	}
+	shift := motion.Steps(math.Round(fit.Centre - pred.Pos))
+	ax.Reference(ax.Position() - shift)
+	fit.Centre -= float64(shift)
+	p.res.Shift = shift
+	t.surprise = nil
+	t.note(p.res, "position re-referenced from the dip at %v: it was off by %d steps", p.res.Freq, shift)
+	return fit, nil
+}
+
+// Calibrate measures the gear backlash at f: it tunes, then sweeps through the dip upward and
+// downward twice each and compares the fitted centres (the shaft lags the motor by half the
+// play either way). The result is installed in the axis and returned for storing.
+func (t *Tuner) Calibrate(ctx context.Context, f physic.Frequency) Result {
+	p := t.begin(ctx, f)
+	if err := t.d.Axis.Fault(); err != nil {
+		return p.finish("", err)
+	}
+	if !t.d.Axis.Trusted() {
+		if !t.o.HasHome {
+			return p.finish("", ErrNeedsHoming)
+		}
+		if err := p.home(); err != nil {
+			return p.finish("", err)
+		}
+	}
+	pred := t.predict(f)
+	p.res.Prediction = &pred
+	if err := p.carrierOn(); err != nil {
+		return p.finish("", err)
+	}
+	fit, err := p.search(pred)
+	if err != nil {
+		return p.finish("", err)
+	}
+	if err := p.to(Calibrating); err != nil {
+		return p.finish("", err)
+	}
+	noise, err := p.measureNoise()
+	if err != nil {
+		return p.finish("", err)
+	}
+	w := math.Max(fit.HalfWidth, 0.5)
+	u := p.backlashUncertainty() + 2
+	var ups, downs []float64
+	for range 2 {
+		for _, dir := range []motion.Direction{motion.Up, motion.Down} {
+			c := fit.Centre
+			if dir == motion.Down {
+				c -= float64(t.o.NominalBacklash) / 2
+			}
+			g, err := p.refine(c, u, w, noise, dir, false)
+			if err != nil {
+				return p.finish("", fmt.Errorf("calibrate: %s sweep: %w", dir, err))
+			}
+			if dir == motion.Up {
+				ups = append(ups, g.Centre)
+			} else {
+				downs = append(downs, g.Centre)
+			}
+		}
+	}
+	up, down := mean(ups), mean(downs)
+	b := motion.Steps(math.Round(up - down))
+	if b < 0 {
+		return p.finish("", fmt.Errorf("calibrate: down-sweep dip %.1f above the up-sweep %.1f: no consistent play", down, up))
+	}
+	spread := math.Max(spreadOf(ups), spreadOf(downs))
+	t.d.Axis.UseBacklash(b)
+	t.calibrated = true
+	p.res.Backlash = b
+	t.note(p.res, "backlash %d steps (up-sweep dip %.1f, down-sweep %.1f, repeatability ±%.1f)", b, up, down, spread/2)
+	fit.Centre = up
+	if err := p.settle(fit, pred); err != nil {
+		return p.finish("", err)
+	}
+	p.learn(pred)
+	return p.finish(Calibrated, nil)
+}
+
+func mean(v []float64) float64 {
+	s := 0.0
+	for _, x := range v {
+		s += x
+	}
+	return s / float64(len(v))
+}
+
+func spreadOf(v []float64) float64 {
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, x := range v {
+		lo, hi = math.Min(lo, x), math.Max(hi, x)
+	}
+	return hi - lo
+}

@@ -1,0 +1,200 @@
+package bench
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"time"
+
+	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/band"
+	"github.com/tankd/tankd/sim"
+	"github.com/tankd/tankd/sim/vclock"
+)
+
+// MapState says what the controller knows before the measured tune.
+type MapState string
+
+// Map states.
+const (
+	Cold MapState = "cold" // an empty memory map: only the physics prior from the description
+	Warm MapState = "warm" // calibrated backlash and a map learned from earlier tunes
+)
+
+// Scenario is one benchmark case: a station as it really is and as it was described, the
+// frequency to tune, and, warm, the tunes that went before.
+type Scenario struct {
+	ID        int
+	Seed      uint64
+	Base      string   // which station it was drawn from
+	Truth     sim.Spec // the simulated station
+	Described sim.Spec // what the controller is told
+	Map       MapState
+	Freq      physic.Frequency
+	Band      string
+	// History: warm only, the frequencies tuned before, oldest first, and when.
+	History []Visit
+	// Start is the virtual time the scenario begins (the first history tune, or the tune).
+	Start time.Time
+	// At is when the measured tune starts.
+	At time.Time
+}
+
+// Visit is one earlier tune.
+type Visit struct {
+	Freq physic.Frequency
+	At   time.Time
+}
+
+// Knobs are the ranges the scenarios are drawn from.
+type Knobs struct {
+	Bands       []string   // bands to draw frequencies from; default 160m, 80m, 40m
+	Noise       [2]float64 // ADC noise multiplier range (log-uniform); default 0.5–4
+	Backlash    [2]float64 // true gear play, steps; default 0–100
+	MissRate    float64    // largest per-pulse loss probability (half the scenarios get one, log-uniform from a hundredth of it); default 1e-5
+	Drift       float64    // largest daily temperature swing, K; default 8
+	Directivity [2]float64 // coupler directivity range, dB; default 22–35
+	Perturb     bool       // the truth differs from the description (strays, inductance, capacitor); default on for built-in presets
+	History     [2]int     // warm: number of earlier tunes; default 6–10
+}
+
+// DefaultKnobs are the benchmark's standard ranges.
+func DefaultKnobs() Knobs {
+	return Knobs{
+		Bands: []string{"160m", "80m", "40m"}, Noise: [2]float64{0.5, 4}, Backlash: [2]float64{0, 100},
+		MissRate: 1e-5, Drift: 8, Directivity: [2]float64{22, 35}, Perturb: true, History: [2]int{6, 10},
+	}
+}
+
+// Generate draws n scenarios from the stations, deterministically from seed.
+func Generate(stations map[string]sim.Spec, names []string, n int, seed uint64, m MapState, k Knobs) ([]Scenario, error) {
+	if len(names) == 0 {
+		return nil, fmt.Errorf("bench: no stations")
+	}
+	// Bands each station can tune within its soft limits.
+	covered := map[string][]band.Band{}
+	for _, name := range names {
+		for _, bn := range k.Bands {
+			b, err := band.Named(bn)
+			if err != nil {
+				return nil, err
+			}
+			if tunable(stations[name], b) {
+				covered[name] = append(covered[name], b)
+			}
+		}
+		if len(covered[name]) == 0 {
+			return nil, fmt.Errorf("bench: station %q tunes none of the bands %v", name, k.Bands)
+		}
+	}
+	out := make([]Scenario, n)
+	var err error
+	for i := range n {
+		r := rand.New(rand.NewPCG(seed, uint64(i)))
+		name := names[r.IntN(len(names))]
+		desc := stations[name]
+		desc.Seed = r.Uint64()
+		truth := desc
+		draw(r, &truth, k)
+		bands := covered[name]
+		sc := Scenario{ID: i, Seed: desc.Seed, Base: name, Truth: truth, Described: desc, Map: m}
+		b := bands[r.IntN(len(bands))]
+		sc.Band = b.Name
+		if sc.Freq, err = reachableIn(r, truth, desc, b); err != nil {
+			return nil, fmt.Errorf("bench: scenario %d: %w", i, err)
+		}
+		day := vclock.Epoch.Add(time.Duration(r.IntN(365*24)) * time.Hour).Add(time.Duration(r.IntN(3600)) * time.Second)
+		sc.Start, sc.At = day, day
+		if m == Warm {
+			nh := k.History[0] + r.IntN(k.History[1]-k.History[0]+1)
+			at := day
+			// An operator works the bands the loop covers: each of them at least twice, in a
+			// random order, then wherever chance takes them.
+			var plan []band.Band
+			for range 2 {
+				plan = append(plan, bands...)
+			}
+			r.Shuffle(len(plan), func(i, j int) { plan[i], plan[j] = plan[j], plan[i] })
+			for j := range max(nh, len(plan)) {
+				hb := bands[r.IntN(len(bands))]
+				if j < len(plan) {
+					hb = plan[j]
+				}
+				hf, err := reachableIn(r, truth, desc, hb)
+				if err != nil {
+					return nil, fmt.Errorf("bench: scenario %d: %w", i, err)
+				}
+				sc.History = append(sc.History, Visit{Freq: hf, At: at})
+				at = at.Add(time.Duration(5+r.IntN(55)) * time.Minute)
+			}
+			sc.At = at.Add(time.Duration(1+r.IntN(29)) * time.Minute)
+		}
+		out[i] = sc
+	}
+	return out, nil
+}
+
+// draw perturbs the truth within the knobs.
+func draw(r *rand.Rand, s *sim.Spec, k Knobs) {
+	logU := func(lo, hi float64) float64 { return lo * math.Pow(hi/lo, r.Float64()) }
+	uni := func(lo, hi float64) float64 { return lo + (hi-lo)*r.Float64() }
+	s.Coupler.ADCNoiseMV *= logU(k.Noise[0], k.Noise[1])
+	s.Drive.BacklashSteps = math.Round(uni(k.Backlash[0], k.Backlash[1]))
+	if k.MissRate > 0 && r.IntN(2) == 0 {
+		s.Drive.MissRate = logU(k.MissRate/100, k.MissRate)
+	}
+	s.Environment.SwingK = uni(0, k.Drift)
+	s.Environment.WanderK = uni(0, k.Drift/4)
+	s.Environment.PeakHour = uni(12, 16)
+	s.Coupler.DirectivityDB = uni(k.Directivity[0], k.Directivity[1])
+	s.Coupler.LeakPhaseDeg = uni(0, 360)
+	if k.Perturb {
+		// A loop is never quite its drawing: strays, the exact size, the capacitor's range.
+		s.Loop.StrayPF *= uni(0.7, 1.3)
+		s.Loop.DiameterM *= uni(0.99, 1.01)
+		s.Capacitor.MinPF *= uni(0.95, 1.05)
+		s.Capacitor.MaxPF *= uni(0.97, 1.03)
+		s.Loop.ExtraLossOhm *= uni(0.7, 1.5)
+	}
+}
+
+// freqIn draws a frequency inside b, a few kHz clear of its edges, on a 10 Hz grid.
+func freqIn(r *rand.Rand, b band.Band) physic.Frequency {
+	lo, hi := Hz(b.Low)+2000, Hz(b.High)-2000
+	return physic.Frequency(math.Round((lo+(hi-lo)*r.Float64())/10)*10) * physic.Hertz
+}
+
+// tunable says whether the described station reaches some of band b inside its soft limits.
+func tunable(s sim.Spec, b band.Band) bool {
+	return inLimits(s, s, b.Low) || inLimits(s, s, b.High)
+}
+
+// inLimits says whether the true station's dip at f lies inside the described soft limits,
+// clear of the strip an approach needs behind it.
+func inLimits(truth, desc sim.Spec, f physic.Frequency) bool {
+	p, err := truth.Prior(sim.Tolerance{}, truth.Environment.MeanC)
+	if err != nil {
+		return false
+	}
+	pr, ok := p.Predict(f)
+	if !ok {
+		return false
+	}
+	lo, hi := desc.SoftLimits()
+	margin := 1.5*desc.Drive.BacklashSteps + 150 + 0.002*float64(hi-lo)
+	return pr.Pos > float64(lo)+margin && pr.Pos < float64(hi)-margin
+}
+
+// reachableIn draws a frequency in b that the true station can tune within the described soft
+// limits (the benchmark asks what the controller does with a tunable frequency; one beyond the
+// capacitor is a different question).
+func reachableIn(r *rand.Rand, truth, desc sim.Spec, b band.Band) (physic.Frequency, error) {
+	for range 50 {
+		f := freqIn(r, b)
+		if inLimits(truth, desc, f) {
+			return f, nil
+		}
+	}
+	return 0, fmt.Errorf("no frequency in %s is tunable on %q", b.Name, truth.Name)
+}

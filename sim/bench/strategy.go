@@ -1,0 +1,135 @@
+package bench
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"time"
+
+	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/sim"
+)
+
+// Strategy names.
+const (
+	Tankd      = "tankd"      // the real controller
+	Exhaustive = "exhaustive" // fixed-step sweep of the whole travel, pick the minimum
+	Oracle     = "oracle"     // knows the best position, moves there, reads once
+)
+
+// Strategies in report order.
+var Strategies = []string{Tankd, Exhaustive, Oracle}
+
+// attempt is what one strategy did on one scenario.
+type attempt struct {
+	tuneTime, rfTime time.Duration
+	prepositioned    bool
+	preSWR           float64 // true SWR after the RF-free pre-position
+	outcome          string
+}
+
+// runTankd runs the controller's own tune.
+func runTankd(ctx context.Context, r *Rig, sc Scenario, pre *float64) (attempt, error) {
+	res, err := r.Tune(ctx, sc.Freq, true)
+	if err != nil {
+		return attempt{}, err
+	}
+	a := attempt{tuneTime: res.Duration(), rfTime: res.RFTime, outcome: string(res.Outcome),
+		prepositioned: res.Prepositioned, preSWR: *pre}
+	return a, nil
+}
+
+// runExhaustive is what a simple fixed-step tuner does: a sweep of the whole travel at half the
+// SWR ≤ 1.5 window, one reading a step after the motor settles, then a backlash-correct move to
+// the lowest reading.
+func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
+	clk := r.Clock
+	start := clk.Now()
+	f := Hz(sc.Freq)
+	prior, err := r.Described.Prior(sim.Tolerance{}, r.Described.Environment.MeanC)
+	if err != nil {
+		return attempt{}, err
+	}
+	pr, ok := prior.Predict(sc.Freq)
+	if !ok {
+		return attempt{}, fmt.Errorf("exhaustive: no model at %v", sc.Freq)
+	}
+	// BW(S) = f·(S−1)/(Q_u·√S) (Yaghjian & Best 2005) with Q_u = 2·Q_L, in steps.
+	window := math.Abs(pr.Slope) * f * 0.5 / (2 * pr.Q * math.Sqrt(1.5))
+	step := motion.Steps(max(1, math.Floor(window/2)))
+	ax := r.Axis
+	lo, hi := ax.SoftLimits()
+	lo += motion.Steps(r.Described.Drive.BacklashSteps) + 120
+	if err := r.Station.Radio.SetFrequency(sc.Freq); err != nil {
+		return attempt{}, err
+	}
+	if err := ax.Approach(ctx, lo); err != nil {
+		return attempt{}, err
+	}
+	if err := r.Station.Radio.Key(ctx, 5*physic.Watt); err != nil {
+		return attempt{}, err
+	}
+	rfStart := clk.Now()
+	best, bestG := lo, math.Inf(1)
+	for p := lo; p <= hi; p += step {
+		if err := ax.MoveTo(ctx, p, 0); err != nil {
+			return attempt{}, err
+		}
+		rd, err := r.Station.Sensor().Read(ctx)
+		if err != nil {
+			return attempt{}, err
+		}
+		if g := rd.Gamma2(); g < bestG {
+			best, bestG = p, g
+		}
+	}
+	rf := clk.Since(rfStart)
+	if err := r.Station.Radio.Unkey(ctx); err != nil {
+		return attempt{}, err
+	}
+	if err := ax.Approach(ctx, best); err != nil {
+		return attempt{}, err
+	}
+	return attempt{tuneTime: clk.Since(start), rfTime: rf, outcome: "swept"}, nil
+}
+
+// runOracle is the lower bound: it knows where the best position is, approaches it with the
+// true play taken up, and reads once.
+func runOracle(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
+	clk := r.Clock
+	start := clk.Now()
+	st := r.Station
+	if err := st.Radio.SetFrequency(sc.Freq); err != nil {
+		return attempt{}, err
+	}
+	best, _, err := st.Best(Hz(sc.Freq))
+	if err != nil {
+		return attempt{}, err
+	}
+	ax := r.Axis
+	ax.UseBacklash(motion.Steps(math.Ceil(st.Spec.Drive.BacklashSteps)))
+	// The oracle sees the shaft: if the motor loses pulses on the way, it goes again.
+	for range 3 {
+		offset := ax.Position() - st.Mech.MotorPosition()
+		if err := ax.Approach(ctx, best+offset); err != nil {
+			return attempt{}, err
+		}
+		if st.Mech.MotorPosition() == best {
+			break
+		}
+	}
+	if err := st.Radio.Key(ctx, 5*physic.Watt); err != nil {
+		return attempt{}, err
+	}
+	rfStart := clk.Now()
+	if _, err := st.Sensor().Read(ctx); err != nil {
+		return attempt{}, err
+	}
+	rf := clk.Since(rfStart)
+	if err := st.Radio.Unkey(ctx); err != nil {
+		return attempt{}, err
+	}
+	return attempt{tuneTime: clk.Since(start), rfTime: rf, outcome: "placed"}, nil
+}

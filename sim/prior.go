@@ -1,0 +1,88 @@
+package sim
+
+import (
+	"math"
+
+	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/memmap"
+)
+
+// Prior predicts the dip from the station description alone: the capacitance the loop's
+// model needs, through the capacitor's law and the gearing, to a motor position. It is what
+// the controller has before it has learned anything. Real loops differ from their drawings
+// (stray capacitance, the exact inductance, the capacitor's true law), and Tolerance says by
+// how much: the prior's σ covers it honestly.
+type Prior struct {
+	rf           *RF
+	stepsPerTurn float64
+	offset       float64 // motor position of the capacitor's minimum, final-approach side
+	tol          Tolerance
+	temp         float64
+}
+
+// Tolerance is how far the real station may be from its description, 1 σ.
+type Tolerance struct {
+	Capacitance float64 // fractional error of the capacitance needed (inductance, law); e.g. 0.03
+	StrayPF     float64 // error of the stray capacitance, pF
+}
+
+// DefaultTolerance is a builder's first guess at a loop from its drawing (common practice:
+// a few percent on the inductance, a few pF on the strays).
+var DefaultTolerance = Tolerance{Capacitance: 0.03, StrayPF: 3}
+
+// NewPrior builds the prior for s. offset is the motor position, on the final-approach side
+// of the gear play, at which the capacitor shaft is at its minimum; temp is the temperature
+// the description holds for, °C.
+func NewPrior(s Spec, offset float64, tol Tolerance, temp float64) (*Prior, error) {
+	rf, err := newRF(s)
+	if err != nil {
+		return nil, err
+	}
+	return &Prior{rf: rf, stepsPerTurn: s.StepsPerTurn(), offset: offset, tol: tol, temp: temp}, nil
+}
+
+func newRF(s Spec) (*RF, error) {
+	c, err := s.CapacitorModel()
+	if err != nil {
+		return nil, err
+	}
+	return NewRF(s.Model(), s.FeedModel(), c)
+}
+
+// Predict implements memmap.Prior.
+func (p *Prior) Predict(f physic.Frequency) (memmap.Prediction, bool) {
+	fHz := float64(f) / float64(physic.Hertz)
+	if !(fHz > 0) {
+		return memmap.Prediction{}, false
+	}
+	turns, ok := p.rf.DipTurns(fHz, p.temp)
+	if !ok {
+		return memmap.Prediction{}, false
+	}
+	el := p.rf.Electrical(fHz, 1, p.temp)
+	cTotal := el.Capacitance + p.rf.Model().Stray
+	slopeC := p.rf.Capacitor().Slope(turns) // F per turn
+	// C ∝ 1/f²: dC/df = −2C/f.
+	stepsPerFarad := p.stepsPerTurn / slopeC
+	dc := math.Hypot(p.tol.Capacitance*cTotal, p.tol.StrayPF*1e-12)
+	return memmap.Prediction{
+		Pos:    p.offset + turns*p.stepsPerTurn,
+		Sigma:  dc * stepsPerFarad,
+		Slope:  -2 * cTotal / fHz * stepsPerFarad,
+		Q:      el.QLoaded,
+		Source: memmap.SourcePrior,
+	}, true
+}
+
+// LawBend is how far, in steps, the capacitor's true law may stray from a smooth model fitted
+// to it: 0.1 % of the travel for a capacitor described by a straight law (the real one bows a
+// little), 0.5 % for one described by a table (common practice; a measured table is only so
+// good). It is the memory map's Bend.
+func (s Spec) LawBend() float64 {
+	share := 0.001
+	if len(s.Capacitor.Table) > 0 {
+		share = 0.005
+	}
+	return share * s.Capacitor.SpanTurns * s.StepsPerTurn()
+}

@@ -1,0 +1,38 @@
+package sim
+
+import (
+	"math"
+	"testing"
+
+	"periph.io/x/conn/v3/physic"
+)
+
+func TestPriorSlopeMatchesFiniteDifference(t *testing.T) {
+	s := DefaultSpec()
+	p, err := NewPrior(s, 20, DefaultTolerance, 20)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := 3750 * physic.KiloHertz
+	a, ok := p.Predict(f)
+	if !ok {
+		t.Fatal("no prediction at 3.75 MHz")
+	}
+	b, _ := p.Predict(f + 100*physic.Hertz)
+	fd := (b.Pos - a.Pos) / 100
+	if math.Abs(a.Slope-fd) > 1e-3*math.Abs(fd) {
+		t.Errorf("slope %g steps/Hz, finite difference %g", a.Slope, fd)
+	}
+	if a.Slope >= 0 {
+		t.Error("more capacitance for a lower frequency: the slope must be negative")
+	}
+	// SWR ≤ 1.5 window from the loaded Q: BW(1.5) = f·0.5/(Q_u·√1.5) (Yaghjian & Best 2005),
+	// Q_u = 2·Q_L; about 4 steps at 3.75 MHz on this drive (the physics of this loop).
+	win := math.Abs(a.Slope) * 3.75e6 * 0.5 / (2 * a.Q * math.Sqrt(1.5))
+	if win < 2 || win > 8 {
+		t.Errorf("SWR 1.5 window %.1f steps at 3.75 MHz", win)
+	}
+	if _, ok := p.Predict(30 * physic.MegaHertz); ok {
+		t.Error("30 MHz is beyond the capacitor's range")
+	}
+}

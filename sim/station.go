@@ -1,0 +1,199 @@
+package sim
+
+import (
+	"fmt"
+	"math"
+	"time"
+
+	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/clock"
+	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/sense"
+	"github.com/tankd/tankd/sim/capacitor"
+	"github.com/tankd/tankd/sim/coupler"
+	"github.com/tankd/tankd/sim/env"
+	"github.com/tankd/tankd/sim/mech"
+	"github.com/tankd/tankd/sim/radio"
+)
+
+// Station is a whole simulated installation built from a Spec: the loop and its feed, the
+// tuning capacitor, the drive train, the coupler with its detectors and ADC, the weather and
+// the radio, all on one clock. It hands the controller the same interfaces real hardware
+// does (a motion.Drive and switches, a sense.Sensor, a transmitter) and answers the test
+// oracle's questions (the true SWR now, where the best position is) that hardware cannot.
+//
+// A Station is driven by one goroutine, like the hardware it stands for.
+type Station struct {
+	Spec    Spec
+	Clock   clock.Clock
+	RF      *RF
+	Mech    *mech.Mechanics
+	Coupler *coupler.Coupler
+	Weather *env.Weather
+	Radio   *radio.Radio
+	sensor  *sense.Coupler
+	perTurn float64
+}
+
+// NewStation builds the station on clk (a *vclock.Clock in tests and benchmarks, the wall
+// clock for the real-time demo). Every random draw is seeded from s.Seed.
+func NewStation(s Spec, clk clock.Clock) (*Station, error) {
+	if err := s.Validate(); err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	rf, err := newRF(s)
+	if err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	st := &Station{Spec: s, Clock: clk, RF: rf, perTurn: s.StepsPerTurn()}
+	capOpts := rf.Capacitor().Options()
+	d := s.Drive
+	mo := mech.Options{
+		Seed:        s.Seed ^ 0x6d656368,
+		StepsPerRev: d.StepsPerRev, Microsteps: d.Microsteps, GearRatio: d.GearRatio,
+		Backlash: int64(math.Round(d.BacklashSteps)), RandomPlay: true,
+		PulloutSpeed: d.PulloutSpeed, MaxAccel: d.MaxAccel, MissRate: d.MissRate,
+		SettleAmplitude: d.SettleSteps, SettleTime: time.Duration(d.SettleMS * float64(time.Millisecond)),
+		SlipOnRelease: d.SlipOnRelease,
+		Name:          "simulated drive",
+	}
+	if capOpts.Travel == capacitor.Stops {
+		mo.HardStops, mo.StopMin, mo.StopMax = true, 0, capOpts.Span*st.perTurn
+	}
+	if h := d.Home; h != nil {
+		mo.Home = &mech.SwitchOptions{At: h.AtTurns * st.perTurn, Side: motion.Down, Hysteresis: h.HysteresisSteps}
+	}
+	// Start somewhere in the first third of the travel: a loop is rarely left at an end.
+	mo.Start = int64(st.perTurn * capOpts.Span * (0.1 + 0.2*float64(s.Seed%97)/97))
+	if st.Mech, err = mech.New(clk, mo); err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	e := s.Environment
+	if st.Weather, err = env.New(env.Options{Mean: e.MeanC, Swing: e.SwingK, PeakHour: e.PeakHour, Wander: e.WanderK, Seed: s.Seed ^ 0x776561}); err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	f := physic.Frequency(math.Round(s.Radio.FrequencyHz)) * physic.Hertz
+	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(s.Radio.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB}); err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	cal, err := s.Calibration()
+	if err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	c := s.Coupler
+	co := coupler.Options{
+		CouplingDB: c.CouplingDB, DirectivityDB: c.DirectivityDB, LeakPhase: c.LeakPhaseDeg * math.Pi / 180,
+		Forward: cal.Forward, Reflected: cal.Reflected, Seed: s.Seed ^ 0x636f7570,
+		ADC: coupler.ADCOptions{Bits: c.ADCBits, FullScale: c.ADCFullScaleV, Noise: c.ADCNoiseMV / 1000,
+			Conversion: s.Conversion(), Simultaneous: c.Simultaneous},
+	}
+	if st.Coupler, err = coupler.New(clk, st.line, co); err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	if st.sensor, err = sense.NewCoupler(st.Coupler, cal); err != nil {
+		return nil, fmt.Errorf("station: %w", err)
+	}
+	return st, nil
+}
+
+// line is what the coupler samples now: the radio's carrier and the loop's reflection at the
+// radio's frequency, the shaft's position and the air temperature.
+func (st *Station) line() (float64, complex128) {
+	rs := st.Radio.State()
+	on, p := rs.Carrier()
+	if !on {
+		return 0, 0
+	}
+	f := float64(rs.Frequency()) / float64(physic.Hertz)
+	return float64(p) / float64(physic.Watt), st.RF.Gamma(f, st.Mech.Shaft()/st.perTurn, st.Temperature())
+}
+
+// Sensor is the calibrated coupler, as the controller reads it.
+func (st *Station) Sensor() sense.Sensor { return st.sensor }
+
+// Temperature is the air (and loop) temperature now, °C.
+func (st *Station) Temperature() float64 { return st.Weather.Temperature(st.Clock.Now()) }
+
+// Thermometer reads the station's temperature (tune.Thermometer).
+func (st *Station) Thermometer() Thermometer { return Thermometer{st} }
+
+// Thermometer is a thermometer at the loop.
+type Thermometer struct{ st *Station }
+
+// Temperature implements tune.Thermometer.
+func (t Thermometer) Temperature() (physic.Temperature, error) {
+	return physic.ZeroCelsius + physic.Temperature(t.st.Temperature()*float64(physic.Kelvin)), nil
+}
+
+// TrueSWR is the SWR on the line now at frequency f (Hz) for the shaft where it stands: what a
+// perfect meter would show with a carrier.
+func (st *Station) TrueSWR(f float64) float64 {
+	return st.RF.SWR(f, st.Mech.Shaft()/st.perTurn, st.Temperature())
+}
+
+// Best is the oracle's answer for frequency f (Hz) now: the motor position, approached from
+// below with the gear play taken up, whose shaft position gives the lowest SWR, and that SWR.
+// Motor positions are whole steps, so the best achievable SWR is the best over whole steps.
+func (st *Station) Best(f float64) (pos motion.Steps, swr float64, err error) {
+	t := st.Temperature()
+	turns, ok := st.RF.DipTurns(f, t)
+	if !ok {
+		return 0, 0, fmt.Errorf("station: the capacitor cannot tune %.0f Hz", f)
+	}
+	half := st.Spec.Drive.BacklashSteps / 2
+	// Up-approach: the shaft trails the motor by half the play.
+	centre := turns*st.perTurn + half
+	swr = math.Inf(1)
+	for p := math.Floor(centre) - 2; p <= math.Ceil(centre)+2; p++ {
+		s := st.RF.SWR(f, (p-half)/st.perTurn, t)
+		if s < swr {
+			pos, swr = motion.Steps(p), s
+		}
+	}
+	return pos, swr, nil
+}
+
+// SoftLimits are the axis limits the description asks for: the capacitor's rising range, the
+// end margin inside each end, in the Up-approach coordinates of the motor (the shaft trails the
+// motor by half the play).
+func (s Spec) SoftLimits() (lo, hi motion.Steps) {
+	span := s.Capacitor.SpanTurns * s.StepsPerTurn()
+	m := s.Capacitor.EndMarginPct / 100 * span
+	half := s.Drive.BacklashSteps / 2
+	return motion.Steps(math.Ceil(m + half)), motion.Steps(math.Floor(span - m + half))
+}
+
+// AxisOptions are the motion options the description implies: its planned speed and
+// acceleration, settling, soft limits, the given nominal backlash (an upper bound until a
+// calibration measures it), and homing onto the home switch if there is one.
+func (s Spec) AxisOptions(nominalBacklash motion.Steps) motion.Options {
+	d := s.Drive
+	lo, hi := s.SoftLimits()
+	o := motion.Options{
+		Min: lo, Max: hi, MaxSpeed: d.MaxSpeed, Accel: d.Accel,
+		Settle:   time.Duration(d.SettleMS * float64(time.Millisecond)),
+		Poll:     2 * time.Millisecond,
+		Backlash: nominalBacklash, Approach: motion.Up, ApproachMargin: 16,
+		SlipWhenReleased: d.SlipOnRelease,
+	}
+	if h := d.Home; h != nil {
+		at := h.AtTurns * s.StepsPerTurn()
+		// slow enough that the ramped stop after the switch trips stays well clear of the
+		// end stop behind it
+		fast := math.Min(d.MaxSpeed/2, math.Sqrt(d.Accel*math.Max(at, 50)/2))
+		o.Homing = motion.HomingOptions{
+			Dir: motion.Down, FastSpeed: fast, SlowSpeed: math.Min(200, fast),
+			BackOff: motion.Steps(math.Max(4*h.HysteresisSteps, 2*float64(nominalBacklash)) + 16),
+			// moving down onto the switch the shaft leads the motor by half the play
+			HomePosition: motion.Steps(math.Round(at - d.BacklashSteps/2)),
+		}
+	}
+	return o
+}
+
+// Prior is the physics prior from the description, in the axis coordinates AxisOptions sets
+// up, for a loop at temp °C.
+func (s Spec) Prior(tol Tolerance, temp float64) (*Prior, error) {
+	return NewPrior(s, s.Drive.BacklashSteps/2, tol, temp)
+}
