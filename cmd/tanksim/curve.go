@@ -1,10 +1,84 @@
 package main
 
 import (
-	"errors"
+	"fmt"
 	"io"
+	"math"
+
+	"gonum.org/v1/plot/plotter"
 )
 
 func runCurve(args []string, stdout, stderr io.Writer) error {
-	return errors.New("not built yet")
+	fs := newFlags("curve", stderr)
+	geo := addGeometryFlags(fs)
+	freq := fs.Float64("freq", 3.75e6, "operating frequency, Hz")
+	against := fs.String("x", "step", "horizontal axis: step (SWR against motor step at -freq) or freq (SWR against frequency with the capacitor at -freq's dip)")
+	width := fs.Float64("width", 3, "span either side of the dip, in loaded bandwidths")
+	temp := fs.Float64("temp", 20, "temperature, °C")
+	out := fs.String("o", "curve.svg", "output file, .svg or .png")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: tanksim curve [flags]\n\nPlots the loop's true SWR (no coupler, no noise) around the dip.\n\nflags:")
+		fs.PrintDefaults()
+	}
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if !(*width > 0) || *width > 100 {
+		return usageError{fmt.Errorf("-width %g: want more than 0 and at most 100 bandwidths", *width)}
+	}
+	s, err := geo.spec(fs)
+	if err != nil {
+		return err
+	}
+	rf, err := newRF(s)
+	if err != nil {
+		return err
+	}
+	f0 := *freq
+	turns, ok := rf.DipTurns(f0, *temp)
+	if !ok {
+		return fmt.Errorf("the capacitor cannot tune %.0f Hz", f0)
+	}
+	el := rf.Electrical(f0, 1, *temp)
+	perTurn := s.StepsPerTurn()
+	const n = 801
+	var pts plotter.XYs
+	var title, xLabel string
+	var xmin, xmax float64
+	switch *against {
+	case "freq":
+		span := *width * el.Bandwidth
+		xmin, xmax = (f0-span)/1e3, (f0+span)/1e3
+		for i := range n {
+			f := f0 - span + 2*span*float64(i)/(n-1)
+			pts = append(pts, plotter.XY{X: f / 1e3, Y: clipSWR(rf.SWR(f, turns, *temp))})
+		}
+		title = fmt.Sprintf("%s: SWR against frequency, tuned to %.3f kHz (Q_L %.0f, BW %.0f Hz)", s.Name, f0/1e3, el.QLoaded, el.Bandwidth)
+		xLabel = "frequency, kHz"
+	case "step":
+		// The loaded bandwidth in capacitance: ΔC/C = 2Δf/f, turned into motor steps.
+		c := el.Capacitance + s.Model().Stray
+		dc := 2 * c * el.Bandwidth / f0
+		span := math.Max(*width*dc/rf.Capacitor().Slope(turns)*perTurn, 10)
+		centre := turns * perTurn
+		xmin, xmax = centre-span, centre+span
+		for i := range n {
+			st := xmin + 2*span*float64(i)/(n-1)
+			pts = append(pts, plotter.XY{X: st, Y: clipSWR(rf.SWR(f0, st/perTurn, *temp))})
+		}
+		title = fmt.Sprintf("%s: SWR against motor step at %.3f kHz (dip at step %.1f)", s.Name, f0/1e3, centre)
+		xLabel = fmt.Sprintf("motor step (%.0f per capacitor turn)", perTurn)
+	default:
+		return usageError{fmt.Errorf("-x %q: want step or freq", *against)}
+	}
+	p := newSWRPlot(title, xLabel, xmin, xmax)
+	if err := addLine(p, "true SWR", pts, colCoarse, 1.5); err != nil {
+		return err
+	}
+	if err := savePlot(p, *out); err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "wrote %s: %s\n", *out, title)
+	fmt.Fprintln(stdout, caution)
+	return nil
 }

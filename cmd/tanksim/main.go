@@ -25,6 +25,7 @@ func commands() map[string]command {
 	return map[string]command{
 		"design": {"electrical design of a loop per frequency or band", runDesign},
 		"curve":  {"plot SWR against frequency or motor step (SVG or PNG)", runCurve},
+		"bench":  {"benchmark the controller against the simulator and two reference strategies", runBench},
 	}
 }
 
