@@ -2,18 +2,15 @@ package memmap
 
 import (
 	"bytes"
-	"crypto/sha256"
-	"encoding/hex"
 	"errors"
 	"fmt"
-	"io"
 	"io/fs"
 	"math"
-	"os"
-	"path/filepath"
 	"slices"
 	"strconv"
 	"strings"
+
+	"github.com/tankd/tankd/controller/store"
 )
 
 // The map file's signature and the one version this build reads and writes.
@@ -21,84 +18,62 @@ const (
 	fileMagic   = "tankd-tunemap"
 	fileVersion = 1
 	// PrevSuffix is appended to a map file's path to name the previous good copy.
-	PrevSuffix = ".prev"
-	// tempInfix names the temporary files a save writes before renaming one into place.
-	tempInfix = ".tmp-"
-	// maxFileSize bounds what Load reads: a full map is well under a megabyte.
-	maxFileSize = 16 << 20
+	PrevSuffix = store.PrevSuffix
 )
 
-// Errors of Load, for errors.Is.
+// Errors of Load, for errors.Is. ErrCorrupt and ErrUsedPrevious are the store package's own
+// values, so that either name matches.
 var (
-	// ErrCorrupt: a map file fails its checksum or does not parse (torn, truncated or edited).
-	ErrCorrupt = errors.New("corrupt map file")
+	// ErrCorrupt: no usable map file: it fails its checksum or does not parse (torn, truncated
+	// or edited), and so does the previous copy, or there is none.
+	ErrCorrupt = store.ErrCorrupt
 	// ErrVersion: a map file was written in a format version this build does not read. Load
 	// does not fall back to the previous copy over it, so as not to lose newer data.
 	ErrVersion = errors.New("unsupported map file version")
 	// ErrUsedPrevious: the main copy was missing or unusable, and the map came from the
 	// previous copy. Load returns a usable map with it; the caller should log it.
-	ErrUsedPrevious = errors.New("using the previous copy")
+	ErrUsedPrevious = store.ErrUsedPrevious
 )
 
-// Save writes the map to path atomically: a crash at any moment leaves either the old or the
-// new file in place, never a mix. A good file already at path is kept as path+PrevSuffix.
-// Only one writer may save to a path at a time.
+// Save writes the map to path atomically with store.WriteFile: a crash at any moment leaves
+// either the old or the new file in place, never a mix. A good file already at path is kept as
+// path+PrevSuffix. Only one writer may save to a path at a time.
 func (m *Map) Save(path string) error {
-	return m.save(osOps{}, path)
-}
-
-func (m *Map) save(ops fileOps, path string) error {
-	if err := writeMap(ops, path, m.encode()); err != nil {
-		return fmt.Errorf("memmap: save %s: %w", path, err)
+	if err := store.WriteFile(path, m.encodeBody()); err != nil {
+		return fmt.Errorf("memmap: save: %w", err)
 	}
 	return nil
 }
 
-// Load reads the map saved at path with Save. A missing or unusable file falls back to the
-// previous copy: then the map is returned together with an error wrapping ErrUsedPrevious and
-// the reason. With neither file there (the first run), Load returns an empty map and no error.
-// If no usable map is found, Load returns nil and an error wrapping ErrCorrupt, ErrVersion or
-// the I/O error; the files are left alone for inspection.
+// Load reads the map saved at path with Save. A missing or unusable file (one that fails its
+// checksum or does not parse) falls back to the previous copy: then the map is returned together
+// with an error wrapping ErrUsedPrevious and saying what was wrong. With neither file there (the
+// first run), Load returns an empty map and no error. If no usable map is found, Load returns
+// nil and an error wrapping ErrCorrupt, ErrVersion or the I/O error; the files are left alone
+// for inspection. A main file of another format version is not passed over for the previous
+// copy: Load returns ErrVersion.
 func Load(path string, opts Options) (*Map, error) {
 	o, err := opts.resolve()
 	if err != nil {
 		return nil, err
 	}
-	m, mainErr := loadFile(path, o)
-	if mainErr == nil {
-		return m, nil
-	}
-	if errors.Is(mainErr, ErrVersion) {
-		return nil, fmt.Errorf("memmap: load %s: %w", path, mainErr)
-	}
-	pm, prevErr := loadFile(path+PrevSuffix, o)
+	m, err := store.Decode(path, func(body []byte) (*Map, error) { return decodeBody(body, o) })
 	switch {
-	case prevErr == nil:
-		return pm, fmt.Errorf("memmap: load %s: %w: main copy: %w", path, ErrUsedPrevious, mainErr)
-	case errors.Is(mainErr, fs.ErrNotExist) && errors.Is(prevErr, fs.ErrNotExist):
+	case err == nil:
+		return m, nil
+	case errors.Is(err, ErrUsedPrevious):
+		return m, fmt.Errorf("memmap: load: %w", err)
+	case errors.Is(err, fs.ErrNotExist):
 		return &Map{o: o}, nil
 	}
-	return nil, fmt.Errorf("memmap: load %s: %w; previous copy: %w", path, mainErr, prevErr)
+	return nil, fmt.Errorf("memmap: load: %w", err)
 }
 
-func loadFile(path string, o resolved) (*Map, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return nil, err
-	}
-	defer f.Close()
-	data, err := io.ReadAll(io.LimitReader(f, maxFileSize+1))
-	if err != nil {
-		return nil, err
-	}
-	if len(data) > maxFileSize {
-		return nil, fmt.Errorf("%w: larger than %d bytes", ErrCorrupt, maxFileSize)
-	}
-	return decode(data, o)
-}
+// encode returns the map file: the body and its checksum line; see FORMAT in doc.go.
+func (m *Map) encode() []byte { return store.AppendChecksum(m.encodeBody()) }
 
-// encode writes the map in the file format; see FORMAT in doc.go.
-func (m *Map) encode() []byte {
+// encodeBody writes the map in the file format, all but the checksum line.
+func (m *Map) encodeBody() []byte {
 	m.mu.RLock()
 	defer m.mu.RUnlock()
 	b := make([]byte, 0, 256+320*len(m.ents))
@@ -159,10 +134,7 @@ func (m *Map) encode() []byte {
 		b = appendMat(b, &e.c)
 		b = append(b, '\n')
 	}
-	sum := sha256.Sum256(b)
-	b = append(b, "sha256 "...)
-	b = hex.AppendEncode(b, sum[:])
-	return append(b, '\n')
+	return b
 }
 
 func appendOptFloat(b []byte, v float64) []byte {
@@ -214,43 +186,48 @@ func appendMat(b []byte, p *mat) []byte {
 	return b
 }
 
-// verify checks the checksum line and then the signature, and returns the body the checksum
-// covers. The framing (a last line "sha256 <hex>" over all that precedes it) is the same in every
-// version, so that a damaged file is told from one of a newer version.
+// verify checks a whole map file, its checksum line and then its signature, and returns the
+// body the checksum covers.
 func verify(data []byte) ([]byte, error) {
-	if len(data) == 0 || data[len(data)-1] != '\n' {
-		return nil, fmt.Errorf("%w: truncated (no final newline)", ErrCorrupt)
+	body, err := store.Verify(data)
+	if err != nil {
+		return nil, err
 	}
-	i := bytes.LastIndexByte(data[:len(data)-1], '\n')
-	if i < 0 {
-		return nil, fmt.Errorf("%w: truncated (no checksum line)", ErrCorrupt)
+	if err := checkSignature(body); err != nil {
+		return nil, err
 	}
-	body, last := data[:i+1], string(data[i+1:len(data)-1])
-	want, ok := strings.CutPrefix(last, "sha256 ")
-	if !ok || len(want) != 2*sha256.Size {
-		return nil, fmt.Errorf("%w: truncated (no checksum line)", ErrCorrupt)
-	}
-	sum := sha256.Sum256(body)
-	if hex.EncodeToString(sum[:]) != want {
-		return nil, fmt.Errorf("%w: checksum mismatch", ErrCorrupt)
-	}
+	return body, nil
+}
+
+// checkSignature checks the first line of a verified body. The checksum framing is the same in
+// every version, so a body that verifies but carries another version is a newer file, told
+// apart from a damaged one.
+func checkSignature(body []byte) error {
 	first, _, _ := bytes.Cut(body, []byte{'\n'})
 	magic, ver, ok := strings.Cut(string(first), " ")
 	if !ok || magic != fileMagic {
-		return nil, fmt.Errorf("%w: no %s signature", ErrCorrupt, fileMagic)
+		return fmt.Errorf("%w: no %s signature", ErrCorrupt, fileMagic)
 	}
 	if v, err := strconv.Atoi(ver); err != nil || v < 1 || strconv.Itoa(v) != ver {
-		return nil, fmt.Errorf("%w: bad version %q", ErrCorrupt, ver)
+		return fmt.Errorf("%w: bad version %q", ErrCorrupt, ver)
 	} else if v != fileVersion {
-		return nil, fmt.Errorf("%w %d: this build reads version %d", ErrVersion, v, fileVersion)
+		return fmt.Errorf("%w %d: this build reads version %d", ErrVersion, v, fileVersion)
 	}
-	return body, nil
+	return nil
 }
 
 // decode parses a whole map file.
 func decode(data []byte, o resolved) (*Map, error) {
 	body, err := verify(data)
 	if err != nil {
+		return nil, err
+	}
+	return parseBody(body, o)
+}
+
+// decodeBody parses a verified body.
+func decodeBody(body []byte, o resolved) (*Map, error) {
+	if err := checkSignature(body); err != nil {
 		return nil, err
 	}
 	return parseBody(body, o)
@@ -463,137 +440,4 @@ func parseMat(s string) (mat, error) {
 		p[i/ns][i%ns] = v[i]
 	}
 	return p, nil
-}
-
-// fileOps are the filesystem operations of a save, as a seam through which tests inject a
-// failure at each step.
-type fileOps interface {
-	CreateTemp(dir, pattern string) (tempFile, error)
-	ReadFile(name string) ([]byte, error)
-	Remove(name string) error
-	Link(oldname, newname string) error
-	Rename(oldpath, newpath string) error
-	SyncDir(dir string) error
-}
-
-type tempFile interface {
-	Name() string
-	Write(b []byte) (int, error)
-	Sync() error
-	Close() error
-}
-
-type osOps struct{}
-
-func (osOps) CreateTemp(dir, pattern string) (tempFile, error) { return os.CreateTemp(dir, pattern) }
-func (osOps) ReadFile(name string) ([]byte, error)             { return os.ReadFile(name) }
-func (osOps) Remove(name string) error                         { return os.Remove(name) }
-func (osOps) Link(oldname, newname string) error               { return os.Link(oldname, newname) }
-func (osOps) Rename(oldpath, newpath string) error             { return os.Rename(oldpath, newpath) }
-
-func (osOps) SyncDir(dir string) error {
-	d, err := os.Open(dir)
-	if err != nil {
-		return err
-	}
-	err = d.Sync()
-	if cerr := d.Close(); err == nil {
-		err = cerr
-	}
-	return err
-}
-
-// writeMap replaces the file at path with data, keeping a good current file as the previous
-// copy. The order matters: the previous copy is made (a hard link: the current file's data is
-// never written to again) before the new data, complete and on disk, is renamed over path, and
-// at every moment path names a complete file.
-func writeMap(ops fileOps, path string, data []byte) error {
-	dir, base := filepath.Split(path)
-	if dir == "" {
-		dir = "."
-	}
-	removeStaleTemps(ops, dir, base)
-	old, err := ops.ReadFile(path)
-	switch {
-	case err == nil:
-		// A current file that is itself corrupt must not displace a good previous copy.
-		if _, verr := verify(old); verr == nil {
-			if err := keepPrevious(ops, path, old); err != nil {
-				return err
-			}
-		}
-	case errors.Is(err, fs.ErrNotExist):
-	default:
-		return fmt.Errorf("read current copy: %w", err)
-	}
-	return replaceFile(ops, dir, base, path, data)
-}
-
-func keepPrevious(ops fileOps, path string, old []byte) error {
-	prev := path + PrevSuffix
-	if err := ops.Remove(prev); err != nil && !errors.Is(err, fs.ErrNotExist) {
-		return fmt.Errorf("remove old previous copy: %w", err)
-	}
-	if err := ops.Link(path, prev); err == nil {
-		return nil
-	}
-	// Some filesystems have no hard links: copy instead, as atomically as the map itself.
-	dir, base := filepath.Split(prev)
-	if dir == "" {
-		dir = "."
-	}
-	if err := replaceFile(ops, dir, base, prev, old); err != nil {
-		return fmt.Errorf("keep previous copy: %w", err)
-	}
-	return nil
-}
-
-// replaceFile writes data to a new temporary file in dir, makes it durable, renames it over
-// path, and makes the rename durable.
-func replaceFile(ops fileOps, dir, base, path string, data []byte) (err error) {
-	f, err := ops.CreateTemp(dir, base+tempInfix+"*")
-	if err != nil {
-		return fmt.Errorf("create temporary file: %w", err)
-	}
-	name := f.Name()
-	closed := false
-	defer func() {
-		if err != nil {
-			if !closed {
-				f.Close()
-			}
-			ops.Remove(name)
-		}
-	}()
-	if _, err := f.Write(data); err != nil {
-		return fmt.Errorf("write %s: %w", name, err)
-	}
-	if err := f.Sync(); err != nil {
-		return fmt.Errorf("sync %s: %w", name, err)
-	}
-	closed = true
-	if err := f.Close(); err != nil {
-		return fmt.Errorf("close %s: %w", name, err)
-	}
-	if err := ops.Rename(name, path); err != nil {
-		return fmt.Errorf("rename %s: %w", name, err)
-	}
-	if err := ops.SyncDir(dir); err != nil {
-		// The new file is in place; only its durability across a power cut is in doubt.
-		return fmt.Errorf("sync directory %s: %w", dir, err)
-	}
-	return nil
-}
-
-// removeStaleTemps removes temporary files that an earlier save, killed midway, left behind.
-func removeStaleTemps(ops fileOps, dir, base string) {
-	ents, err := os.ReadDir(dir)
-	if err != nil {
-		return
-	}
-	for _, e := range ents {
-		if n := e.Name(); strings.HasPrefix(n, base+tempInfix) || strings.HasPrefix(n, base+PrevSuffix+tempInfix) {
-			ops.Remove(filepath.Join(dir, e.Name()))
-		}
-	}
 }
