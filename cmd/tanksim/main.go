@@ -3,6 +3,8 @@
 //
 //	tanksim design  [flags]   electrical design of a loop, per frequency or band
 //	tanksim curve   [flags]   SWR against frequency or motor step, as SVG or PNG
+//	tanksim tune    [flags]   one simulated tune, stage by stage, with a plot
+//	tanksim bench   [flags]   the controller against an exhaustive sweep and an oracle
 //
 // Run "tanksim <command> -h" for a command's flags.
 package main
@@ -26,6 +28,7 @@ func commands() map[string]command {
 		"design": {"electrical design of a loop per frequency or band", runDesign},
 		"curve":  {"plot SWR against frequency or motor step (SVG or PNG)", runCurve},
 		"bench":  {"benchmark the controller against the simulator and two reference strategies", runBench},
+		"tune":   {"one simulated tune, stage by stage, with an optional plot", runTune},
 	}
 }
 

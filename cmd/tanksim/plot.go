@@ -49,6 +49,8 @@ func newSWRPlot(title, xLabel string, xmin, xmax float64) *plot.Plot {
 		p.Add(l)
 	}
 	p.Legend.Top = false
+	p.Legend.Left = true
+	p.Legend.XOffs = vg.Points(8)
 	p.Legend.YOffs = vg.Points(12)
 	return p
 }

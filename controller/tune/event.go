@@ -84,4 +84,9 @@ type FitReport struct {
 	MinSWR    float64 // the fitted curve's lowest measured SWR
 	Chi2      float64
 	Samples   int
+	curve     curve
 }
+
+// Gamma2At evaluates the fitted curve (measured |Γ|² against motor position), for plotting;
+// NaN for a fit without a curve ("minimum").
+func (r *FitReport) Gamma2At(pos float64) float64 { return r.curve.Gamma2At(pos) }

@@ -22,6 +22,26 @@ type dipFit struct {
 	MinGamma2 float64 // measured |Γ|² the curve gives at Centre (includes the coupler's leakage)
 	Chi2      float64 // reduced χ² against the noise model (about 1 for a good fit)
 	N         int     // samples used
+	curve     curve
+}
+
+// curve is a fitted model's coefficients, kept to draw it.
+type curve struct {
+	method     string
+	ref, scale float64
+	c          []float64
+}
+
+// Gamma2At evaluates the fitted curve at position pos; NaN where there is no curve.
+func (c curve) Gamma2At(pos float64) float64 {
+	x := (pos - c.ref) / c.scale
+	switch c.method {
+	case "rational":
+		return (c.c[0] + c.c[1]*x + c.c[2]*x*x) / (x*x + c.c[3]*x + c.c[4])
+	case "lorentzian":
+		return 1 - 1/(c.c[0]+c.c[1]*x+c.c[2]*x*x)
+	}
+	return math.NaN()
 }
 
 var errNoFit = errors.New("no resonance curve fits the samples")
@@ -131,6 +151,7 @@ func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
 		HalfWidth: h * scale,
 		MinGamma2: (th[0] + th[1]*x0 + th[2]*x0*x0) / (h * h),
 		N:         n,
+		curve:     curve{method: "rational", ref: ref, scale: scale, c: th},
 	}
 	chi := 0.0
 	for i, s := range samples {
@@ -219,7 +240,7 @@ func fitLorentzian(samples []sample, expWidth float64) (dipFit, error) {
 		return dipFit{}, fmt.Errorf("%w: negative peak", errNoFit)
 	}
 	f := dipFit{Method: "lorentzian", Centre: ref + x0*scale, HalfWidth: math.Sqrt(peak/th[2]) * scale,
-		MinGamma2: 1 - 1/peak, N: len(a)}
+		MinGamma2: 1 - 1/peak, N: len(a), curve: curve{method: "lorentzian", ref: ref, scale: scale, c: th}}
 	if err := f.plausible(samples, expWidth, 1); err != nil {
 		return dipFit{}, err
 	}

@@ -129,3 +129,20 @@ func quantile(v []float64, q float64) float64 {
 	sort.Float64s(s)
 	return s[int(q*float64(len(s)-1))]
 }
+
+func TestFitCurveReproducesTheData(t *testing.T) {
+	r := rand.New(rand.NewPCG(11, 12))
+	data := synthDip(r, 300, 10, 1.1, 0.03, 1, 0, 0.5) // noiseless
+	f, err := fitDip(data, 10, 0.01)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, s := range data {
+		if got := f.curve.Gamma2At(s.Pos); math.Abs(got-s.Gamma2) > 1e-6 {
+			t.Fatalf("curve at %.1f = %g, data %g", s.Pos, got, s.Gamma2)
+		}
+	}
+	if !math.IsNaN(fitMinimum(data).curve.Gamma2At(300)) {
+		t.Error("a minimum has no curve")
+	}
+}

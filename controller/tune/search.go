@@ -34,13 +34,18 @@ func (t *Tuner) Tune(ctx context.Context, req Request) Result {
 			if err := p.home(); err != nil {
 				return p.finish("", err)
 			}
-		case t.o.HardStops || !req.RF:
+		case t.o.HardStops:
 			return p.finish("", fmt.Errorf("tune: %w (%s)", ErrNeedsHoming, t.d.Axis.Snapshot().Distrust))
+		case !req.RF:
+			return p.finish("", fmt.Errorf("tune: %w (%s)", ErrNeedsReference, t.d.Axis.Snapshot().Distrust))
 		}
 	}
 	pred := t.predict(req.Freq)
 	p.res.Prediction = &pred
 	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: req.Freq, Pos: pred.Pos})
+	if err := p.inRange(pred); err != nil {
+		return p.finish("", err)
+	}
 	if pred.Trusted && pred.Source != "none" {
 		if err := p.to(Positioning); err != nil {
 			return p.finish("", err)
@@ -82,6 +87,20 @@ func (t *Tuner) Tune(ctx context.Context, req Request) Result {
 	}
 	p.learn(pred)
 	return p.finish(Tuned, nil)
+}
+
+// inRange refuses a frequency whose dip the prediction puts well outside the soft limits:
+// there is nothing to tune there, and no reason to transmit.
+func (p *op) inRange(pred Prediction) error {
+	if pred.Source == "none" || !pred.Trusted {
+		return nil
+	}
+	lo, hi := p.t.d.Axis.SoftLimits()
+	if pred.Pos+3*pred.Sigma < float64(lo) || pred.Pos-3*pred.Sigma > float64(hi) {
+		return fmt.Errorf("%w: the dip is expected at %.0f±%.0f, outside the soft limits %d–%d",
+			ErrOutOfRange, pred.Pos, pred.Sigma, lo, hi)
+	}
+	return nil
 }
 
 // home runs the homing sequence.
@@ -167,12 +186,8 @@ func (p *op) search(pred Prediction) (dipFit, error) {
 	lo, hi := p.t.d.Axis.SoftLimits()
 	centre, half := (float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2
 	if pred.Source != "none" && pred.Trusted {
-		if pred.Pos+3*pred.Sigma < float64(lo) || pred.Pos-3*pred.Sigma > float64(hi) {
-			return dipFit{}, fmt.Errorf("%w: the dip is expected at %.0f±%.0f, outside the soft limits %d–%d",
-				ErrOutOfRange, pred.Pos, pred.Sigma, lo, hi)
-		}
 		if u, ok := direct(pred); ok {
-			f, err := p.refine(pred.Pos, u, w, noise, motion.Up, true)
+			f, err := p.refineAround(coarseHit{pos: pred.Pos, uncertainty: u}, w, noise)
 			if err == nil {
 				return f, nil
 			}
@@ -386,18 +401,19 @@ func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, erro
 		dir = motion.Down
 	}
 	f, e := motion.Steps(math.Round(from)), motion.Steps(math.Round(to))
-	if ax.Position() != f {
-		if err := p.moveTo("coarse", f, 0); err != nil {
+	// After a reversal the shaft stands still until the play is taken up: the scan starts a
+	// run-up early and its readings before from are dropped.
+	start := f
+	if ax.Snapshot().Play != dir || ax.Position() != f {
+		lo, hi := ax.SoftLimits()
+		start = min(max(f-motion.Steps(dir)*t.runUp(), lo), hi)
+	}
+	if ax.Position() != start {
+		if err := p.moveThrough("coarse", start); err != nil {
 			return coarseHit{}, false, err
 		}
 	}
-	// After a reversal the shaft stands still until the play is taken up: readings there
-	// belong to the old position.
-	skip := float64(t.runUp())
-	if st := ax.Snapshot(); st.Play == dir {
-		skip = 0
-	}
-	t.emit(Event{Kind: KindMove, Stage: "coarse", Pos: float64(f), Target: e, Speed: speed, Freq: p.res.Freq})
+	t.emit(Event{Kind: KindMove, Stage: "coarse", Pos: float64(start), Target: e, Speed: speed, Freq: p.res.Freq})
 	if err := ax.Start(e, speed); err != nil {
 		return coarseHit{}, false, err
 	}
@@ -421,7 +437,7 @@ func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, erro
 		if err != nil {
 			return coarseHit{}, false, err
 		}
-		if math.Abs(s.Pos-from) >= skip && !p.rejected(upEquiv(s.Pos)) {
+		if (s.Pos-from)*float64(dir) >= 0 && !p.rejected(upEquiv(s.Pos)) {
 			a := base.value() - s.Gamma2
 			base.add(s.Gamma2)
 			if a >= thr {
@@ -679,7 +695,7 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 		if fit.HalfWidth > 0 {
 			w = fit.HalfWidth
 		}
-		f, err := p.refine(fit.Centre, 2+w, w, noise, motion.Up, true)
+		f, err := p.refineAround(coarseHit{pos: fit.Centre, uncertainty: 2 + w}, w, noise)
 		if err != nil {
 			return err
 		}
@@ -691,7 +707,7 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 // fitted width and the map's slope.
 func (t *Tuner) report(f dipFit, pred Prediction, freq physic.Frequency) *FitReport {
 	r := &FitReport{Method: f.Method, Centre: f.Centre, HalfWidth: f.HalfWidth, Chi2: f.Chi2, Samples: f.N,
-		MinSWR: sense.SWRFromGamma2(math.Max(f.MinGamma2, 0))}
+		MinSWR: sense.SWRFromGamma2(math.Max(f.MinGamma2, 0)), curve: f.curve}
 	if f.HalfWidth > 0 && pred.Slope != 0 {
 		r.Bandwidth = 2 * f.HalfWidth / math.Abs(pred.Slope)
 		r.QLoaded = float64(freq) / float64(physic.Hertz) / r.Bandwidth
@@ -763,6 +779,12 @@ func (p *op) reference(pred Prediction) (dipFit, error) {
 	}
 	ax := t.d.Axis
 	ax.Reference(ax.Position()) // provisional: the search needs to move
+	ok := false
+	defer func() {
+		if !ok {
+			ax.Distrust("re-reference did not finish")
+		}
+	}()
 	noise, err := p.measureNoise()
 	if err != nil {
 		return dipFit{}, err
@@ -770,14 +792,13 @@ func (p *op) reference(pred Prediction) (dipFit, error) {
 	lo, hi := ax.SoftLimits()
 	c, err := p.coarse((float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2, pred.Width, noise)
 	if err != nil {
-		ax.Distrust("re-reference failed")
 		return dipFit{}, err
 	}
 	fit, err := p.refineAround(c, pred.Width, noise)
 	if err != nil {
-		ax.Distrust("re-reference failed")
 		return dipFit{}, err
 	}
+	ok = true
 	shift := motion.Steps(math.Round(fit.Centre - pred.Pos))
 	ax.Reference(ax.Position() - shift)
 	fit.Centre -= float64(shift)
@@ -830,7 +851,11 @@ func (t *Tuner) Calibrate(ctx context.Context, f physic.Frequency) Result {
 			}
 			g, err := p.refine(c, u, w, noise, dir, false)
 			if err != nil {
-				return p.finish("", fmt.Errorf("calibrate: %s sweep: %w", dir, err))
+				way := "upward"
+				if dir == motion.Down {
+					way = "downward"
+				}
+				return p.finish("", fmt.Errorf("calibrate: %s sweep: %w", way, err))
 			}
 			if dir == motion.Up {
 				ups = append(ups, g.Centre)

@@ -27,15 +27,15 @@ const (
 // transitions is the tune state machine: from each state, where it may go. Every path ends
 // back in Idle (with an outcome) or in Faulted.
 var transitions = map[State][]State{
-	Idle:            {Positioning, AwaitingCarrier, Homing, Referencing, Calibrating, Faulted},
+	Idle:            {Positioning, AwaitingCarrier, Homing, Faulted},
 	Positioning:     {AwaitingCarrier, Idle, Faulted},
-	AwaitingCarrier: {Scanning, Refining, Referencing, Calibrating, Idle, Faulted},
+	AwaitingCarrier: {Scanning, Refining, Referencing, Idle, Faulted},
 	Scanning:        {Refining, Scanning, Idle, Faulted},
 	Refining:        {Approaching, Refining, Scanning, Calibrating, Idle, Faulted},
 	Approaching:     {Verifying, Idle, Faulted},
 	Verifying:       {Refining, Idle, Faulted},
 	Homing:          {Positioning, AwaitingCarrier, Idle, Faulted},
-	Referencing:     {AwaitingCarrier, Scanning, Refining, Idle, Faulted},
+	Referencing:     {Scanning, Idle, Faulted},
 	Calibrating:     {Approaching, Idle, Faulted},
 	Faulted:         {Idle},
 }
@@ -56,20 +56,22 @@ type Outcome string
 
 // Outcomes.
 const (
-	Tuned       Outcome = "tuned"        // at the fitted best position, verified
-	Positioned  Outcome = "positioned"   // moved to the map's prediction; no RF tune asked for
-	NoCarrier   Outcome = "no-carrier"   // no forward power within the wait
-	CarrierLost Outcome = "carrier-lost" // forward power vanished during the tune
-	OverPower   Outcome = "over-power"   // forward power above the tuning limit
-	NoDip       Outcome = "no-dip"       // the whole travel holds no dip for this frequency
-	OutOfRange  Outcome = "out-of-range" // the capacitor cannot tune this frequency within the soft limits
-	Aborted     Outcome = "aborted"      // cancelled (a new frequency, an operator stop)
-	TimedOut    Outcome = "timed-out"    // the tune's time limit passed
-	Fault       Outcome = "fault"        // the axis latched a fault, or the hardware failed
-	NeedsHoming Outcome = "needs-homing" // position untrusted and it cannot be re-referenced here
-	Homed       Outcome = "homed"
-	Referenced  Outcome = "referenced"
-	Calibrated  Outcome = "calibrated"
+	Tuned          Outcome = "tuned"           // at the fitted best position, verified
+	Positioned     Outcome = "positioned"      // moved to the map's prediction; no RF tune asked for
+	NoCarrier      Outcome = "no-carrier"      // no forward power within the wait
+	CarrierLost    Outcome = "carrier-lost"    // forward power vanished during the tune
+	OverPower      Outcome = "over-power"      // forward power above the tuning limit
+	NoDip          Outcome = "no-dip"          // the whole travel holds no dip for this frequency
+	OutOfRange     Outcome = "out-of-range"    // the capacitor cannot tune this frequency within the soft limits
+	Aborted        Outcome = "aborted"         // cancelled (a new frequency, an operator stop)
+	TimedOut       Outcome = "timed-out"       // the tune's time limit passed
+	Fault          Outcome = "fault"           // the axis latched a fault, or the hardware failed
+	NeedsHoming    Outcome = "needs-homing"    // position untrusted; only homing can find it
+	NeedsReference Outcome = "needs-reference" // position untrusted; an RF tune will find it from a dip
+	Homed          Outcome = "homed"
+	Referenced     Outcome = "referenced"
+	Calibrated     Outcome = "calibrated"
+	Reset          Outcome = "reset" // a latched fault was cleared
 )
 
 // machine tracks the state and reports every change.

@@ -169,14 +169,15 @@ func (r Result) Duration() time.Duration { return r.Finished.Sub(r.Started) }
 
 // Sentinel errors behind the outcomes.
 var (
-	ErrNoCarrier    = errors.New("no carrier")
-	ErrCarrierLost  = errors.New("carrier lost")
-	ErrOverPower    = errors.New("forward power above the tuning limit")
-	ErrNoDip        = errors.New("no dip found")
-	ErrOutOfRange   = errors.New("frequency out of the capacitor's range")
-	ErrTimeout      = errors.New("time limit passed")
-	ErrNeedsHoming  = errors.New("position unknown and cannot be re-referenced without homing")
-	ErrNoPrediction = errors.New("nothing to re-reference against: no learned point near this frequency")
+	ErrNoCarrier      = errors.New("no carrier")
+	ErrCarrierLost    = errors.New("carrier lost")
+	ErrOverPower      = errors.New("forward power above the tuning limit")
+	ErrNoDip          = errors.New("no dip found")
+	ErrOutOfRange     = errors.New("frequency out of the capacitor's range")
+	ErrTimeout        = errors.New("time limit passed")
+	ErrNeedsHoming    = errors.New("position unknown and cannot be re-referenced without homing")
+	ErrNeedsReference = errors.New("position unknown: an RF tune must find it again from the dip")
+	ErrNoPrediction   = errors.New("nothing to re-reference against: no learned point near this frequency")
 )
 
 // Tuner is the synchronous tuning core. It is driven by one goroutine (the controller's run
@@ -331,8 +332,10 @@ func outcomeOf(err error) Outcome {
 		return NoDip
 	case errors.Is(err, ErrOutOfRange):
 		return OutOfRange
-	case errors.Is(err, ErrNeedsHoming), errors.Is(err, ErrNoPrediction), errors.Is(err, motion.ErrUntrusted):
+	case errors.Is(err, ErrNeedsHoming), errors.Is(err, motion.ErrUntrusted):
 		return NeedsHoming
+	case errors.Is(err, ErrNeedsReference), errors.Is(err, ErrNoPrediction):
+		return NeedsReference
 	}
 	return Fault
 }

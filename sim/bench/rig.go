@@ -9,6 +9,7 @@ import (
 
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/sense"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/capacitor"
@@ -39,6 +40,10 @@ type RigOptions struct {
 	Start           time.Time     // zero: vclock.Epoch
 	Observer        tune.Observer
 	Tune            tune.Options // Transmit, HasHome, HardStops and NominalBacklash are filled in
+	// NoTransmit: the controller may not key the radio; an operator must give the carrier.
+	NoTransmit bool
+	// WrapSensor, if set, wraps the station's sensor (for fault injection in tests).
+	WrapSensor func(sense.Sensor) sense.Sensor
 }
 
 // NewRig builds the rig. Without a home switch the axis is referenced where the mechanics
@@ -85,7 +90,7 @@ func NewRig(o RigOptions) (*Rig, error) {
 		return nil, err
 	}
 	to := o.Tune
-	to.Transmit = true
+	to.Transmit = !o.NoTransmit
 	to.HasHome = hasHome
 	to.HardStops = desc.Capacitor.Travel == capacitor.Stops.String()
 	to.NominalBacklash = o.NominalBacklash
@@ -109,8 +114,12 @@ func NewRig(o RigOptions) (*Rig, error) {
 			o.Observer.Observe(e)
 		}
 	})
+	sensor := st.Sensor()
+	if o.WrapSensor != nil {
+		sensor = o.WrapSensor(sensor)
+	}
 	tn, err := tune.New(tune.Deps{
-		Axis: ax, Sensor: st.Sensor(), Clock: clk, Map: mm, Transmitter: st.Radio,
+		Axis: ax, Sensor: sensor, Clock: clk, Map: mm, Transmitter: st.Radio,
 		Thermometer: st.Thermometer(), Observer: obs,
 	}, to)
 	if err != nil {
@@ -126,6 +135,9 @@ func (r *Rig) Tune(ctx context.Context, f physic.Frequency, rf bool) (tune.Resul
 	}
 	return r.Tuner.Tune(ctx, tune.Request{Freq: f, RF: rf}), nil
 }
+
+// FailDrive makes the drive refuse its next move, as a driver whose bus has failed.
+func (r *Rig) FailDrive() { r.watch.fail = true }
 
 // LimitViolations counts moves that took the motor outside the soft limits, by the rig's own
 // count of pulses.

@@ -1,6 +1,8 @@
 package bench
 
 import (
+	"errors"
+
 	"github.com/tankd/tankd/controller/motion"
 )
 
@@ -17,9 +19,17 @@ type watch struct {
 	ignore     bool // homing in progress
 	flagged    bool // this move already counted
 	violations int
+	fail       bool // refuse the next Start (fault injection)
 }
 
+// errDriveFailed is the injected drive failure.
+var errDriveFailed = errors.New("simulated drive: bus error")
+
 func (w *watch) Start(m motion.Move) error {
+	if w.fail {
+		w.fail = false
+		return errDriveFailed
+	}
 	if err := w.Drive.Start(m); err != nil {
 		return err
 	}
@@ -37,7 +47,9 @@ func (w *watch) Progress() (int64, bool) {
 	return e, running
 }
 
-// sync puts the count into the axis's coordinates (after a reference or homing).
+// sync puts the count into the axis's coordinates (after a reference or homing): the drive
+// still reports the last move's pulses, so the move is taken to have started that far back.
 func (w *watch) sync(p motion.Steps) {
-	w.pos, w.start, w.synced = p, p, true
+	e, _ := w.Drive.Progress()
+	w.pos, w.start, w.synced = p, p-motion.Steps(w.dir)*e, true
 }
