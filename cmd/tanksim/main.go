@@ -5,6 +5,8 @@
 //	tanksim curve   [flags]   SWR against frequency or motor step, as SVG or PNG
 //	tanksim tune    [flags]   one simulated tune, stage by stage, with a plot
 //	tanksim bench   [flags]   the controller against an exhaustive sweep and an oracle
+//	tanksim record  [flags]   a sweep recording from the simulator
+//	tanksim replay  [flags] F the controller against a recording
 //
 // Run "tanksim <command> -h" for a command's flags.
 package main
@@ -29,6 +31,8 @@ func commands() map[string]command {
 		"curve":  {"plot SWR against frequency or motor step (SVG or PNG)", runCurve},
 		"bench":  {"benchmark the controller against the simulator and two reference strategies", runBench},
 		"tune":   {"one simulated tune, stage by stage, with an optional plot", runTune},
+		"record": {"sweep the simulated loop through the dip and write a recording", runRecord},
+		"replay": {"run the controller against a sweep recording", runReplay},
 	}
 }
 

@@ -13,6 +13,8 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/band"
+	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/record"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim/bench"
 )
@@ -185,7 +187,11 @@ func (w *tuneWriter) observe(e tune.Event) {
 		fmt.Fprintf(w.out, "%8.3f s  prediction (%s): position %.1f ± %.1f steps, dip half-width %.1f steps (loaded Q %.0f)\n",
 			at, p.Source, p.Pos, p.Sigma, p.Width, p.Q)
 	case tune.KindPositioned:
-		fmt.Fprintf(w.out, "%8.3f s  pre-positioned at %.0f without RF (true SWR there %.2f)\n", at, e.Pos, w.rig.Station.TrueSWR(bench.Hz(e.Freq)))
+		truth := ""
+		if w.rig != nil {
+			truth = fmt.Sprintf(" (true SWR there %.2f)", w.rig.Station.TrueSWR(bench.Hz(e.Freq)))
+		}
+		fmt.Fprintf(w.out, "%8.3f s  pre-positioned at %.0f without RF%s\n", at, e.Pos, truth)
 	case tune.KindMove:
 		w.flushReadings()
 		speed := "full speed"
@@ -282,4 +288,48 @@ func swrOf(g2 float64) float64 {
 		return math.Inf(1)
 	}
 	return (1 + g) / (1 - g)
+}
+
+// plotReplay draws the recording (both directions), the controller's readings, its fitted
+// curve and the chosen position.
+func plotReplay(path string, samples []record.Sample, r *bench.ReplayRig, w *tuneWriter, res tune.Result) error {
+	var up, down plotter.XYs
+	for _, s := range samples {
+		if s.Freq != r.Freq {
+			continue
+		}
+		q := plotter.XY{X: float64(s.Step), Y: clipSWR(s.SWR)}
+		if s.Dir == motion.Up {
+			up = append(up, q)
+		} else {
+			down = append(down, q)
+		}
+	}
+	xmin, xmax := float64(r.Best)-6*r.Width, float64(r.Best)+6*r.Width
+	p := newSWRPlot(fmt.Sprintf("tankd on a recording at %v: %s, final SWR %.2f", r.Freq, res.Outcome, res.SWR), "motor position, steps", xmin, xmax)
+	if err := addPoints(p, "recorded going up", up, colTrue, draw.CircleGlyph{}, 1.2); err != nil {
+		return err
+	}
+	if err := addPoints(p, "recorded going down", down, colGuide, draw.CircleGlyph{}, 1.2); err != nil {
+		return err
+	}
+	if w.fit != nil {
+		var fitted plotter.XYs
+		for i := range 600 {
+			x := xmin + (xmax-xmin)*float64(i)/599
+			if g := w.fit.Gamma2At(x); !math.IsNaN(g) {
+				fitted = append(fitted, plotter.XY{X: x, Y: clipSWR(swrOf(g))})
+			}
+		}
+		if err := addLine(p, "fitted curve", fitted, colFit, 1.2); err != nil {
+			return err
+		}
+	}
+	if err := addPoints(p, "controller's fine readings", w.fine, colFine, draw.CircleGlyph{}, 1.8); err != nil {
+		return err
+	}
+	if err := addPoints(p, "chosen position", plotter.XYs{{X: float64(res.Pos), Y: clipSWR(res.SWR)}}, colChosen, draw.CrossGlyph{}, 5); err != nil {
+		return err
+	}
+	return savePlot(p, path)
 }

@@ -54,6 +54,10 @@ type Options struct {
 	Backlash motion.Steps
 	// CarrierOff starts the replay with no carrier: readings are zero until Carrier(true).
 	CarrierOff bool
+	// HoldEnds answers outside a direction's recorded span with the reading at its nearer end,
+	// instead of ErrNoData: a recording that runs far enough into the dip's tails holds total
+	// reflection there, as the loop would, so a controller may run past the ends.
+	HoldEnds bool
 	// Name is what String returns. Default "replay".
 	Name string
 }
@@ -73,6 +77,7 @@ type Replay struct {
 	name  string
 	freq  physic.Frequency
 	fall  bool
+	hold  bool
 	play  motion.Steps
 	curve [2][]point // by dirIndex
 
@@ -96,6 +101,7 @@ func New(clk clock.Clock, samples []record.Sample, opts Options) (*Replay, error
 		conv:    cmp.Or(opts.Conversion, DefaultConversion),
 		name:    cmp.Or(opts.Name, "replay"),
 		fall:    opts.Fallback,
+		hold:    opts.HoldEnds,
 		play:    opts.Backlash,
 		carrier: !opts.CarrierOff,
 		base:    opts.Position,
@@ -248,6 +254,13 @@ func (r *Replay) lookup(p motion.Steps, d motion.Direction) (fwd, g2 float64, er
 	}
 	if len(own) == 0 {
 		return 0, 0, fmt.Errorf("never recorded in this direction at %v: %w", r.freq, ErrNoData)
+	}
+	if r.hold {
+		end := own[0]
+		if p > own[len(own)-1].step {
+			end = own[len(own)-1]
+		}
+		return end.fwd, end.g2, nil
 	}
 	return 0, 0, fmt.Errorf("outside the recorded steps %d to %d: %w", own[0].step, own[len(own)-1].step, ErrNoData)
 }

@@ -549,3 +549,26 @@ func TestReplaysARecordingFile(t *testing.T) {
 		}
 	}
 }
+
+func TestHoldEnds(t *testing.T) {
+	clk := vclock.New(vclock.Epoch)
+	samples := []record.Sample{
+		{Step: 10, Dir: motion.Up, Freq: 3500000 * physic.Hertz, Forward: 5 * physic.Watt, Reflected: 4 * physic.Watt, SWR: 17.9},
+		{Step: 20, Dir: motion.Up, Freq: 3500000 * physic.Hertz, Forward: 5 * physic.Watt, Reflected: 3 * physic.Watt, SWR: 7.9},
+	}
+	r, err := replay.New(clk, samples, replay.Options{Position: 5, HoldEnds: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := r.Enable(true); err != nil {
+		t.Fatal(err)
+	}
+	rd, err := r.Read(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	// below the recorded span: the lower end's |Γ|² = 4/5
+	if g := rd.Gamma2(); math.Abs(g-0.8) > 1e-6 {
+		t.Errorf("|Γ|² %g below the span, want the end's 0.8", g)
+	}
+}
