@@ -28,6 +28,7 @@ func runTune(args []string, stdout, stderr io.Writer) error {
 	seed := fs.Uint64("seed", 1, "seed for the simulator's noise and the warm history")
 	plotFile := fs.String("plot", "", "draw SWR against position to this .svg or .png file")
 	verbose := fs.Bool("v", false, "print every reading")
+	realTime := fs.Bool("realtime", false, "run on the wall clock: the tune takes as long as on real hardware")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, `usage: tanksim tune [flags]
 
@@ -53,7 +54,10 @@ flags:`)
 	s.Seed = *seed
 	f := hz(*freq)
 	w := &tuneWriter{out: stdout, verbose: *verbose}
-	r, err := bench.NewRig(bench.RigOptions{Truth: s, Observer: tune.ObserverFunc(w.observe)})
+	if *realTime && *mapState == "warm" {
+		return usageError{fmt.Errorf("-realtime goes with -map cold: a warm-up would take hours of real time")}
+	}
+	r, err := bench.NewRig(bench.RigOptions{Truth: s, Observer: tune.ObserverFunc(w.observe), RealTime: *realTime})
 	if err != nil {
 		return err
 	}
@@ -106,7 +110,7 @@ func warmUp(ctx context.Context, r *bench.Rig, f interface{ String() string }, n
 	var bands []band.Band
 	lo, hi := r.Axis.SoftLimits()
 	for _, b := range band.All() {
-		p, ok := r.Map.Predict(b.Centre(), r.Clock.Now(), nil)
+		p, ok := r.Map.Predict(b.Centre(), r.Time.Now(), nil)
 		if ok && p.Pos > float64(lo)+500 && p.Pos < float64(hi)-500 {
 			bands = append(bands, b)
 		}

@@ -206,8 +206,9 @@ func (p *op) search(pred Prediction) (dipFit, error) {
 		if !errors.Is(err, errNotInWindow) || len(p.rejects) >= 5 {
 			return f, err
 		}
-		// A false alarm: the fine sweep saw no dip there. Scan on, ignoring that spot.
-		u := c.uncertainty + 2.5*w
+		// A false alarm: the fine sweep saw no dip there. Scan on, ignoring that spot (only
+		// the spot: the fine sweep may have missed a real dip nearby by a backlash guess).
+		u := 2 * w
 		p.rejects = append(p.rejects, [2]float64{c.pos - u, c.pos + u})
 		p.t.emit(Event{Kind: KindNote, Text: fmt.Sprintf("no dip near %.0f after all: scanning on", c.pos)})
 	}
@@ -354,6 +355,15 @@ func (p *op) coarse(centre, half, w float64, noise noiseLevel) (coarseHit, error
 	}
 }
 
+// backlashEstimate is the play to convert a position found scanning downward to final-approach
+// coordinates: the measured play, or half the nominal bound before a calibration.
+func (p *op) backlashEstimate() float64 {
+	if p.t.calibrated {
+		return float64(p.t.d.Axis.Snapshot().Backlash)
+	}
+	return float64(p.t.o.NominalBacklash) / 2
+}
+
 // backlashUncertainty is how far a position found scanning downward may be off once converted
 // to final-approach coordinates: half the nominal play until a calibration has measured it.
 func (p *op) backlashUncertainty() float64 {
@@ -417,7 +427,7 @@ func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, erro
 	if err := ax.Start(e, speed); err != nil {
 		return coarseHit{}, false, err
 	}
-	b := float64(ax.Snapshot().Backlash)
+	b := p.backlashEstimate()
 	upEquiv := func(pos float64) float64 {
 		if dir == motion.Down {
 			return pos + b

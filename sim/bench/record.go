@@ -64,7 +64,7 @@ func RecordSweep(ctx context.Context, r *Rig, f physic.Frequency, span, perWidth
 		conv /= 2
 	}
 	speed := w / perWidth / conv.Seconds()
-	start := r.Clock.Now()
+	start := r.Time.Now()
 	var samples []record.Sample
 	sweep := func(to motion.Steps, dir motion.Direction, from motion.Steps) error {
 		if err := ax.Start(to, speed); err != nil {

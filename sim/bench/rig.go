@@ -7,6 +7,7 @@ import (
 
 	"periph.io/x/conn/v3/physic"
 
+	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/sense"
@@ -20,7 +21,10 @@ import (
 // built from the truth, the controller is configured from the description the builder wrote
 // down (which may differ from the truth, as real loops differ from their drawings).
 type Rig struct {
-	Station   *sim.Station
+	Station *sim.Station
+	// Time is the clock everything runs on; Clock is the same clock when it is virtual (nil
+	// in real time).
+	Time      clock.Clock
 	Clock     *vclock.Clock
 	Axis      *motion.Axis
 	Map       *memmap.Map
@@ -39,7 +43,10 @@ type RigOptions struct {
 	Tolerance       sim.Tolerance // the prior's; zero: sim.DefaultTolerance
 	Start           time.Time     // zero: vclock.Epoch
 	Observer        tune.Observer
-	Tune            tune.Options // Transmit, HasHome, HardStops and NominalBacklash are filled in
+	// RealTime runs the rig on the wall clock (a demo that takes as long as real hardware)
+	// instead of the virtual clock.
+	RealTime bool
+	Tune     tune.Options // Transmit, HasHome, HardStops and NominalBacklash are filled in
 	// NoTransmit: the controller may not key the radio; an operator must give the carrier.
 	NoTransmit bool
 	// WrapSensor, if set, wraps the station's sensor (for fault injection in tests).
@@ -62,7 +69,14 @@ func NewRig(o RigOptions) (*Rig, error) {
 	if o.NominalBacklash == 0 {
 		o.NominalBacklash = motion.Steps(desc.Drive.BacklashSteps*1.5) + 4
 	}
-	clk := vclock.New(o.Start)
+	var clk clock.Clock
+	var vclk *vclock.Clock
+	if o.RealTime {
+		clk = clock.Wall{}
+	} else {
+		vclk = vclock.New(o.Start)
+		clk = vclk
+	}
 	st, err := sim.NewStation(o.Truth, clk)
 	if err != nil {
 		return nil, err
@@ -125,7 +139,7 @@ func NewRig(o RigOptions) (*Rig, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &Rig{Station: st, Clock: clk, Axis: ax, Map: mm, Tuner: tn, Described: desc, watch: w}, nil
+	return &Rig{Station: st, Time: clk, Clock: vclk, Axis: ax, Map: mm, Tuner: tn, Described: desc, watch: w}, nil
 }
 
 // Tune sets the radio to f and runs the controller's tune there.

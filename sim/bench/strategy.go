@@ -45,7 +45,7 @@ func runTankd(ctx context.Context, r *Rig, sc Scenario, pre *float64) (attempt, 
 // SWR ≤ 1.5 window, one reading a step after the motor settles, then a backlash-correct move to
 // the lowest reading.
 func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
-	clk := r.Clock
+	clk := r.Time
 	start := clk.Now()
 	f := Hz(sc.Freq)
 	prior, err := r.Described.Prior(sim.Tolerance{}, r.Described.Environment.MeanC)
@@ -85,20 +85,20 @@ func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 			best, bestG = p, g
 		}
 	}
-	rf := clk.Since(rfStart)
+	rf := clk.Now().Sub(rfStart)
 	if err := r.Station.Radio.Unkey(ctx); err != nil {
 		return attempt{}, err
 	}
 	if err := ax.Approach(ctx, best); err != nil {
 		return attempt{}, err
 	}
-	return attempt{tuneTime: clk.Since(start), rfTime: rf, outcome: "swept"}, nil
+	return attempt{tuneTime: clk.Now().Sub(start), rfTime: rf, outcome: "swept"}, nil
 }
 
 // runOracle is the lower bound: it knows where the best position is, approaches it with the
 // true play taken up, and reads once.
 func runOracle(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
-	clk := r.Clock
+	clk := r.Time
 	start := clk.Now()
 	st := r.Station
 	if err := st.Radio.SetFrequency(sc.Freq); err != nil {
@@ -127,9 +127,9 @@ func runOracle(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	if _, err := st.Sensor().Read(ctx); err != nil {
 		return attempt{}, err
 	}
-	rf := clk.Since(rfStart)
+	rf := clk.Now().Sub(rfStart)
 	if err := st.Radio.Unkey(ctx); err != nil {
 		return attempt{}, err
 	}
-	return attempt{tuneTime: clk.Since(start), rfTime: rf, outcome: "placed"}, nil
+	return attempt{tuneTime: clk.Now().Sub(start), rfTime: rf, outcome: "placed"}, nil
 }
