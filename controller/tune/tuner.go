@@ -357,6 +357,9 @@ func (t *Tuner) Reset() error {
 	return nil
 }
 
+// Calibrated says whether the backlash has been measured (by Calibrate or UseBacklash).
+func (t *Tuner) Calibrated() bool { return t.calibrated }
+
 // UseBacklash installs a backlash measured earlier (a stored calibration).
 func (t *Tuner) UseBacklash(b motion.Steps) {
 	t.d.Axis.UseBacklash(b)
