@@ -111,7 +111,8 @@ func warmUp(ctx context.Context, r *bench.Rig, f interface{ String() string }, n
 	lo, hi := r.Axis.SoftLimits()
 	for _, b := range band.All() {
 		p, ok := r.Map.Predict(b.Centre(), r.Time.Now(), nil)
-		if ok && p.Pos > float64(lo)+500 && p.Pos < float64(hi)-500 {
+		// the loop must reach the band, and the radio transmit in it
+		if ok && p.Pos > float64(lo)+500 && p.Pos < float64(hi)-500 && r.Station.Radio.SetFrequency(b.Centre()) == nil {
 			bands = append(bands, b)
 		}
 	}

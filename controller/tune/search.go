@@ -159,6 +159,9 @@ func (p *op) approach(stage string, target motion.Steps) error {
 
 func (p *op) moveThrough(stage string, target motion.Steps) error {
 	t := p.t
+	if t.d.Axis.Position() == target {
+		return p.check()
+	}
 	t.emit(Event{Kind: KindMove, Stage: stage, Pos: float64(t.d.Axis.Position()), Target: target, Freq: p.res.Freq})
 	if err := t.d.Axis.MoveThrough(p.ctx, target, 0); err != nil {
 		return err
