@@ -6,6 +6,9 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/memmap"
+	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/tune"
+	"github.com/tankd/tankd/sim/capacitor"
 )
 
 // Prior predicts the dip from the station description alone: the capacitance the loop's
@@ -85,4 +88,30 @@ func (s Spec) LawBend() float64 {
 		share = 0.005
 	}
 	return share * s.Capacitor.SpanTurns * s.StepsPerTurn()
+}
+
+// NominalBacklash is the play a controller assumes before a calibration has measured it: the
+// described play and half again, as an upper bound (a run-up that falls short of the real play
+// leaves the capacitor on the wrong side of it).
+func (s Spec) NominalBacklash() motion.Steps {
+	return motion.Steps(s.Drive.BacklashSteps*1.5) + 4
+}
+
+// MapOptions are the memory map's options for this station: the physics prior (with tol, at the
+// description's mean temperature) and the capacitor law's bend.
+func (s Spec) MapOptions(tol Tolerance) (memmap.Options, error) {
+	p, err := s.Prior(tol, s.Environment.MeanC)
+	if err != nil {
+		return memmap.Options{}, err
+	}
+	return memmap.Options{Prior: p, Bend: s.LawBend()}, nil
+}
+
+// TunerOptions fills in what the description says about the station: whether there is a home
+// switch, whether the capacitor has hard stops, and the nominal play.
+func (s Spec) TunerOptions(o tune.Options, nominal motion.Steps) tune.Options {
+	o.HasHome = s.Drive.Home != nil
+	o.HardStops = s.Capacitor.Travel == capacitor.Stops.String()
+	o.NominalBacklash = nominal
+	return o
 }

@@ -27,7 +27,6 @@ import (
 	"github.com/tankd/tankd/controller/store"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim"
-	"github.com/tankd/tankd/sim/capacitor"
 	"github.com/tankd/tankd/sim/radio"
 	"github.com/tankd/tankd/sim/vclock"
 )
@@ -128,7 +127,7 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 	}
 	// The daemon is told what the station description says, with the play as an upper bound
 	// until a calibration measures it.
-	nominal := motion.Steps(spec.Drive.BacklashSteps*1.5) + 4
+	nominal := spec.NominalBacklash()
 	axOpts := spec.AxisOptions(nominal)
 	axOpts.Logger = log
 	ax, err := motion.NewAxis(st.Mech, clk, st.Mech.Switches(), axOpts)
@@ -147,12 +146,12 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 		// A simulated loop with no switch starts where it was left, as installed.
 		ax.Reference(st.Mech.MotorPosition())
 	}
-	prior, err := spec.Prior(sim.DefaultTolerance, spec.Environment.MeanC)
+	mo, err := spec.MapOptions(sim.DefaultTolerance)
 	if err != nil {
 		return err
 	}
 	mapPath := filepath.Join(o.state, "loop.map")
-	mm, err := memmap.Load(mapPath, memmap.Options{Prior: prior, Bend: spec.LawBend()})
+	mm, err := memmap.Load(mapPath, mo)
 	switch {
 	case errors.Is(err, store.ErrUsedPrevious):
 		log.Warn("memory map: the last save was damaged; using the copy before it", "err", err)
@@ -160,8 +159,7 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 		return fmt.Errorf("memory map: %w", err)
 	}
 	log.Info("memory map", "path", mapPath, "points", mm.Len())
-	to := tune.Options{Transmit: true, NominalBacklash: nominal, HasHome: spec.Drive.Home != nil,
-		HardStops: spec.Capacitor.Travel == capacitor.Stops.String(), Logger: log}
+	to := spec.TunerOptions(tune.Options{Transmit: true, Logger: log}, nominal)
 	calPath := filepath.Join(o.state, "backlash")
 	svc, err := controller.NewService(tune.Deps{Axis: ax, Sensor: st.Sensor(), Clock: clk, Map: mm,
 		Transmitter: st.Radio, Thermometer: st.Thermometer(), Observer: logEvents(log)},

@@ -13,7 +13,6 @@ import (
 	"github.com/tankd/tankd/controller/sense"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim"
-	"github.com/tankd/tankd/sim/capacitor"
 	"github.com/tankd/tankd/sim/vclock"
 )
 
@@ -67,7 +66,7 @@ func NewRig(o RigOptions) (*Rig, error) {
 	}
 	desc := o.Described
 	if o.NominalBacklash == 0 {
-		o.NominalBacklash = motion.Steps(desc.Drive.BacklashSteps*1.5) + 4
+		o.NominalBacklash = desc.NominalBacklash()
 	}
 	var clk clock.Clock
 	var vclk *vclock.Clock
@@ -95,19 +94,17 @@ func NewRig(o RigOptions) (*Rig, error) {
 		ax.Reference(st.Mech.MotorPosition())
 		w.sync(ax.Position())
 	}
-	prior, err := desc.Prior(o.Tolerance, desc.Environment.MeanC)
+	mo, err := desc.MapOptions(o.Tolerance)
 	if err != nil {
 		return nil, err
 	}
-	mm, err := memmap.New(memmap.Options{Prior: prior, Bend: desc.LawBend()})
+	mm, err := memmap.New(mo)
 	if err != nil {
 		return nil, err
 	}
-	to := o.Tune
+	to := desc.TunerOptions(o.Tune, o.NominalBacklash)
 	to.Transmit = !o.NoTransmit
 	to.HasHome = hasHome
-	to.HardStops = desc.Capacitor.Travel == capacitor.Stops.String()
-	to.NominalBacklash = o.NominalBacklash
 	// The watch follows homing so that it neither counts homing legs nor loses the frame.
 	obs := tune.ObserverFunc(func(e tune.Event) {
 		if e.Kind == tune.KindState {
