@@ -58,7 +58,9 @@ func TestTuneScripts(t *testing.T) {
 }
 
 type block struct {
-	cmd, want string
+	note string // the comment lines before the command, kept by -rewrite
+	cmd  string
+	want string
 }
 
 func parseScript(path string) ([]block, error) {
@@ -71,7 +73,7 @@ func parseScript(path string) ([]block, error) {
 	sc := bufio.NewScanner(f)
 	var cur *block
 	inOut := false
-	var out []string
+	var out, note []string
 	flush := func() {
 		if cur != nil {
 			cur.want = strings.Join(out, "\n")
@@ -95,11 +97,15 @@ func parseScript(path string) ([]block, error) {
 			if cur != nil {
 				return nil, fmt.Errorf("%s: command %q has no ---- line", path, cur.cmd)
 			}
+			if strings.HasPrefix(line, "#") {
+				note = append(note, line)
+			}
 		default:
 			if cur != nil {
 				return nil, fmt.Errorf("%s: command %q has no ---- line", path, cur.cmd)
 			}
-			cur = &block{cmd: line}
+			cur = &block{cmd: line, note: strings.Join(note, "\n")}
+			note = nil
 		}
 	}
 	flush()
@@ -113,17 +119,15 @@ func runScript(t *testing.T, path string) {
 	}
 	h := &harness{t: t}
 	var rewritten strings.Builder
-	src, _ := os.ReadFile(path)
-	// keep the leading comments when rewriting
-	for _, l := range strings.Split(string(src), "\n") {
-		if !strings.HasPrefix(l, "#") {
-			break
-		}
-		rewritten.WriteString(l + "\n")
-	}
-	for _, b := range blocks {
+	for i, b := range blocks {
 		got := strings.TrimRight(h.run(b.cmd), "\n")
 		if *rewrite {
+			if b.note != "" {
+				if i > 0 {
+					rewritten.WriteString("\n")
+				}
+				rewritten.WriteString(b.note + "\n")
+			}
 			fmt.Fprintf(&rewritten, "\n%s\n----\n%s\n", b.cmd, got)
 			continue
 		}
