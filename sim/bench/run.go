@@ -28,19 +28,19 @@ type Options struct {
 
 // Case is one scenario's outcome under one strategy.
 type Case struct {
-	Scenario   int     `json:"scenario"`
-	Strategy   string  `json:"strategy"`
-	Station    string  `json:"station"`
-	Band       string  `json:"band"`
-	FreqHz     float64 `json:"frequency_hz"`
-	Outcome    string  `json:"outcome"`
-	Success    bool    `json:"success"`
-	TuneS      float64 `json:"tune_s"`
-	RFS        float64 `json:"rf_s"`
-	SWR        float64 `json:"swr"`
-	BestSWR    float64 `json:"best_swr"`
-	PreSWR     float64 `json:"preposition_swr,omitempty"`
-	Preposited bool    `json:"prepositioned,omitempty"`
+	Scenario      int     `json:"scenario"`
+	Strategy      string  `json:"strategy"`
+	Station       string  `json:"station"`
+	Band          string  `json:"band"`
+	FreqHz        float64 `json:"frequency_hz"`
+	Outcome       string  `json:"outcome"`
+	Success       bool    `json:"success"`
+	TuneS         float64 `json:"tune_s"`
+	RFS           float64 `json:"rf_s"`
+	SWR           float64 `json:"swr"`
+	BestSWR       float64 `json:"best_swr"`
+	PreSWR        float64 `json:"preposition_swr,omitempty"`
+	Prepositioned bool    `json:"prepositioned,omitempty"`
 }
 
 // Summary is one strategy's figures over all scenarios; the JSON keys are the benchmark's
@@ -208,7 +208,7 @@ func runScenario(ctx context.Context, sc Scenario, k Knobs) ([]caseResult, error
 		c := caseResult{Case: Case{
 			Scenario: sc.ID, Strategy: strat, Station: sc.Base, Band: sc.Band, FreqHz: f, Outcome: a.outcome,
 			TuneS: a.tuneTime.Seconds(), RFS: a.rfTime.Seconds(), SWR: swr, BestSWR: best,
-			Success: swr <= best+SuccessTolerance, Preposited: a.prepositioned,
+			Success: swr <= best+SuccessTolerance, Prepositioned: a.prepositioned,
 		}, violations: r.LimitViolations(), stalls: r.Station.Mech.Stalls()}
 		if a.prepositioned {
 			c.PreSWR = a.preSWR
@@ -262,7 +262,7 @@ func summarise(name string, results [][]caseResult) Summary {
 			rfs = append(rfs, r.RFS)
 			excess = append(excess, r.SWR-r.BestSWR)
 			overhead = append(overhead, r.TuneS-r.oracleS)
-			if r.Preposited {
+			if r.Prepositioned {
 				warm++
 				if r.PreSWR <= HitSWR {
 					hits++
