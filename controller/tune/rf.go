@@ -6,6 +6,8 @@ import (
 	"math"
 	"time"
 
+	"periph.io/x/conn/v3/physic"
+
 	"github.com/tankd/tankd/controller/sense"
 )
 
@@ -17,6 +19,13 @@ func (p *op) carrierOn() error {
 		return err
 	}
 	if t.o.Transmit && !p.keyed {
+		// Never key on a frequency other than the one being tuned: the dip found would be
+		// the wrong one, and the carrier somewhere it was not asked for.
+		if fr, ok := t.d.Transmitter.(FrequencyReader); ok {
+			if got, want := fr.Frequency(), p.res.Freq; absFreq(got-want) > offFrequency {
+				return fmt.Errorf("%w: the radio is on %v, the tune is for %v", ErrOffFrequency, got, want)
+			}
+		}
 		if err := t.d.Transmitter.Key(p.ctx, t.o.TunePower); err != nil {
 			return fmt.Errorf("key the tune carrier: %w", err)
 		}
@@ -48,6 +57,24 @@ func (p *op) carrierOn() error {
 			return err
 		}
 	}
+}
+
+// FrequencyReader is a Transmitter that can also say what frequency it is on (a radio over
+// CAT, the simulator's radio); the tuner then refuses to key it anywhere but on the frequency
+// it is tuning.
+type FrequencyReader interface {
+	Frequency() physic.Frequency
+}
+
+// offFrequency is how far the radio may be from the tune's frequency: well inside the loop's
+// bandwidth on any band.
+const offFrequency = 100 * physic.Hertz
+
+func absFreq(f physic.Frequency) physic.Frequency {
+	if f < 0 {
+		return -f
+	}
+	return f
 }
 
 // carrierOff drops the tune carrier if the tuner keyed it, and books the RF time. It must run

@@ -63,6 +63,7 @@ const (
 	OverPower      Outcome = "over-power"      // forward power above the tuning limit
 	NoDip          Outcome = "no-dip"          // the whole travel holds no dip for this frequency
 	OutOfRange     Outcome = "out-of-range"    // the capacitor cannot tune this frequency within the soft limits
+	OffFrequency   Outcome = "off-frequency"   // the radio is elsewhere: nothing was keyed
 	Aborted        Outcome = "aborted"         // cancelled (a new frequency, an operator stop)
 	TimedOut       Outcome = "timed-out"       // the tune's time limit passed
 	Fault          Outcome = "fault"           // the axis latched a fault, or the hardware failed

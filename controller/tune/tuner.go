@@ -174,6 +174,7 @@ var (
 	ErrOverPower      = errors.New("forward power above the tuning limit")
 	ErrNoDip          = errors.New("no dip found")
 	ErrOutOfRange     = errors.New("frequency out of the capacitor's range")
+	ErrOffFrequency   = errors.New("the radio is not on the frequency to tune")
 	ErrTimeout        = errors.New("time limit passed")
 	ErrNeedsHoming    = errors.New("position unknown and cannot be re-referenced without homing")
 	ErrNeedsReference = errors.New("position unknown: an RF tune must find it again from the dip")
@@ -332,6 +333,8 @@ func outcomeOf(err error) Outcome {
 		return NoDip
 	case errors.Is(err, ErrOutOfRange):
 		return OutOfRange
+	case errors.Is(err, ErrOffFrequency):
+		return OffFrequency
 	case errors.Is(err, ErrNeedsHoming), errors.Is(err, motion.ErrUntrusted):
 		return NeedsHoming
 	case errors.Is(err, ErrNeedsReference), errors.Is(err, ErrNoPrediction):

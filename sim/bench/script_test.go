@@ -199,6 +199,11 @@ func (h *harness) run(cmd string) string {
 		res := h.do(kv, func(ctx context.Context) tune.Result { return h.r.Tuner.Calibrate(ctx, h.freq(pos[0])) })
 		h.report(&out, res, h.freq(pos[0]))
 		fmt.Fprintf(&out, "backlash measured %d, true %.0f\n", res.Backlash, h.r.Station.Spec.Drive.BacklashSteps)
+	case "calibrate-elsewhere":
+		// a request for a frequency the radio is not on
+		res := h.do(kv, func(ctx context.Context) tune.Result { return h.r.Tuner.Calibrate(ctx, h.freq(pos[0])) })
+		h.report(&out, res, 0)
+		fmt.Fprintf(&out, "radio on %v, transmitting %v\n", h.r.Station.Radio.Frequency(), h.r.Station.Radio.Transmitting())
 	case "home":
 		res := h.do(kv, h.r.Tuner.Home)
 		h.report(&out, res, 0)
