@@ -38,19 +38,11 @@ var DefaultTolerance = Tolerance{Capacitance: 0.03, StrayPF: 3}
 // of the gear play, at which the capacitor shaft is at its minimum; temp is the temperature
 // the description holds for, °C.
 func NewPrior(s Spec, offset float64, tol Tolerance, temp float64) (*Prior, error) {
-	rf, err := newRF(s)
+	rf, err := s.RF()
 	if err != nil {
 		return nil, err
 	}
 	return &Prior{rf: rf, stepsPerTurn: s.StepsPerTurn(), offset: offset, tol: tol, temp: temp}, nil
-}
-
-func newRF(s Spec) (*RF, error) {
-	c, err := s.CapacitorModel()
-	if err != nil {
-		return nil, err
-	}
-	return NewRF(s.Model(), s.FeedModel(), c)
 }
 
 // Predict implements memmap.Prior.

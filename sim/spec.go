@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"strings"
 	"time"
@@ -12,6 +13,8 @@ import (
 
 	"github.com/tankd/tankd/controller/sense"
 	"github.com/tankd/tankd/sim/capacitor"
+	"github.com/tankd/tankd/sim/coupler"
+	"github.com/tankd/tankd/sim/env"
 	"github.com/tankd/tankd/sim/loop"
 )
 
@@ -245,6 +248,36 @@ func (s Spec) Calibration() (sense.Calibration, error) {
 	return sense.Calibration{CouplingDB: s.Coupler.CouplingDB, Forward: d, Reflected: d}, nil
 }
 
+// CouplerOptions are the simulated coupler's and ADC's options.
+func (s Spec) CouplerOptions() (coupler.Options, error) {
+	cal, err := s.Calibration()
+	if err != nil {
+		return coupler.Options{}, err
+	}
+	c := s.Coupler
+	return coupler.Options{
+		CouplingDB: c.CouplingDB, DirectivityDB: c.DirectivityDB, LeakPhase: c.LeakPhaseDeg * math.Pi / 180,
+		Forward: cal.Forward, Reflected: cal.Reflected, Seed: s.Seed ^ 0x636f7570,
+		ADC: coupler.ADCOptions{Bits: c.ADCBits, FullScale: c.ADCFullScaleV, Noise: c.ADCNoiseMV / 1000,
+			Conversion: s.Conversion(), Simultaneous: c.Simultaneous},
+	}, nil
+}
+
+// EnvOptions are the simulated weather's options.
+func (s Spec) EnvOptions() env.Options {
+	e := s.Environment
+	return env.Options{Mean: e.MeanC, Swing: e.SwingK, PeakHour: e.PeakHour, Wander: e.WanderK, Seed: s.Seed ^ 0x776561}
+}
+
+// RF builds the loop's RF model from the description.
+func (s Spec) RF() (*RF, error) {
+	c, err := s.CapacitorModel()
+	if err != nil {
+		return nil, err
+	}
+	return NewRF(s.Model(), s.FeedModel(), c)
+}
+
 // Conversion is the ADC's conversion time per channel.
 func (s Spec) Conversion() time.Duration {
 	return time.Duration(s.Coupler.ConversionUS * float64(time.Microsecond))
@@ -291,22 +324,12 @@ func (s Spec) Validate() error {
 	if d.Home != nil && (d.Home.AtTurns < -1 || d.Home.AtTurns > s.Capacitor.SpanTurns || d.Home.HysteresisSteps < 0) {
 		add("drive.home", fmt.Errorf("at_turns %g: want within -1 and the capacitor span %g; hysteresis_steps %g: want 0 or more", d.Home.AtTurns, s.Capacitor.SpanTurns, d.Home.HysteresisSteps))
 	}
-	if cal, err := s.Calibration(); err != nil {
+	if co, err := s.CouplerOptions(); err != nil {
 		add("coupler", err)
 	} else {
-		add("coupler", cal.Validate())
+		add("coupler", co.Validate())
 	}
-	c := s.Coupler
-	if c.DirectivityDB < 6 || c.DirectivityDB > 80 {
-		add("coupler", fmt.Errorf("directivity_db %g: want 6 to 80", c.DirectivityDB))
-	}
-	if c.ADCBits < 8 || c.ADCBits > 24 || !(c.ADCFullScaleV > 0) || c.ADCNoiseMV < 0 || !(c.ConversionUS > 0) {
-		add("coupler", fmt.Errorf("adc_bits %d (8..24), adc_full_scale_v %g (>0), adc_noise_mv %g (≥0), conversion_us %g (>0) out of range", c.ADCBits, c.ADCFullScaleV, c.ADCNoiseMV, c.ConversionUS))
-	}
-	e := s.Environment
-	if e.MeanC < -50 || e.MeanC > 60 || e.SwingK < 0 || e.SwingK > 30 || e.WanderK < 0 || e.WanderK > 20 || e.PeakHour < 0 || e.PeakHour > 24 {
-		add("environment", fmt.Errorf("mean_c %g (−50..60), swing_k %g (0..30), wander_k %g (0..20), peak_hour %g (0..24) out of range", e.MeanC, e.SwingK, e.WanderK, e.PeakHour))
-	}
+	add("environment", s.EnvOptions().Validate())
 	if !(s.Radio.FrequencyHz > 0) || !(s.Radio.MaxPowerW > 0) {
 		add("radio", fmt.Errorf("frequency_hz %g, max_power_w %g: want both more than 0", s.Radio.FrequencyHz, s.Radio.MaxPowerW))
 	}

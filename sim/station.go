@@ -42,7 +42,7 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	if err := s.Validate(); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
-	rf, err := newRF(s)
+	rf, err := s.RF()
 	if err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
@@ -69,29 +69,21 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	if st.Mech, err = mech.New(clk, mo); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
-	e := s.Environment
-	if st.Weather, err = env.New(env.Options{Mean: e.MeanC, Swing: e.SwingK, PeakHour: e.PeakHour, Wander: e.WanderK, Seed: s.Seed ^ 0x776561}); err != nil {
+	if st.Weather, err = env.New(s.EnvOptions()); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
 	f := physic.Frequency(math.Round(s.Radio.FrequencyHz)) * physic.Hertz
 	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(s.Radio.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB}); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
-	cal, err := s.Calibration()
+	co, err := s.CouplerOptions()
 	if err != nil {
 		return nil, fmt.Errorf("station: %w", err)
-	}
-	c := s.Coupler
-	co := coupler.Options{
-		CouplingDB: c.CouplingDB, DirectivityDB: c.DirectivityDB, LeakPhase: c.LeakPhaseDeg * math.Pi / 180,
-		Forward: cal.Forward, Reflected: cal.Reflected, Seed: s.Seed ^ 0x636f7570,
-		ADC: coupler.ADCOptions{Bits: c.ADCBits, FullScale: c.ADCFullScaleV, Noise: c.ADCNoiseMV / 1000,
-			Conversion: s.Conversion(), Simultaneous: c.Simultaneous},
 	}
 	if st.Coupler, err = coupler.New(clk, st.line, co); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
-	if st.sensor, err = sense.NewCoupler(st.Coupler, cal); err != nil {
+	if st.sensor, err = sense.NewCoupler(st.Coupler, st.Coupler.Calibration()); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
 	return st, nil

@@ -30,7 +30,7 @@ func runCurve(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	rf, err := newRF(s)
+	rf, err := s.RF()
 	if err != nil {
 		return err
 	}

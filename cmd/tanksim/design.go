@@ -12,6 +12,7 @@ import (
 
 	"github.com/tankd/tankd/controller/band"
 	"github.com/tankd/tankd/sim"
+	"github.com/tankd/tankd/sim/bench"
 	"github.com/tankd/tankd/sim/loop"
 )
 
@@ -173,11 +174,11 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 			return usageError{err}
 		}
 		bandList = append(bandList, b)
-		for _, f := range []float64{hzOf(b.Low), hzOf(b.Centre()), hzOf(b.High)} {
+		for _, f := range []float64{bench.Hz(b.Low), bench.Hz(b.Centre()), bench.Hz(b.High)} {
 			points = append(points, point{b.Name, f})
 		}
 	}
-	rf, err := newRF(s)
+	rf, err := s.RF()
 	if err != nil {
 		return err
 	}
@@ -262,12 +263,4 @@ func printDesign(w io.Writer, s sim.Spec, m loop.Model, cmin, cmax float64, rows
 		}
 	}
 	fmt.Fprintln(w, "\nVcap is the circuit-law capacitor voltage, V = X_L·√(P/R); forms using the loaded Q give √2 less.")
-}
-
-func newRF(s sim.Spec) (*sim.RF, error) {
-	c, err := s.CapacitorModel()
-	if err != nil {
-		return nil, err
-	}
-	return sim.NewRF(s.Model(), s.FeedModel(), c)
 }

@@ -15,6 +15,7 @@ import (
 	"github.com/tankd/tankd/controller/band"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/record"
+	"github.com/tankd/tankd/controller/sense"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim/bench"
 )
@@ -133,7 +134,7 @@ func warmUp(ctx context.Context, r *bench.Rig, f interface{ String() string }, n
 		} else {
 			res = r.Tuner.Tune(ctx, tune.Request{Freq: fr, RF: true})
 		}
-		learned = append(learned, fmt.Sprintf("%.1f kHz %s", hzOf(fr)/1e3, res.Outcome))
+		learned = append(learned, fmt.Sprintf("%.1f kHz %s", bench.Hz(fr)/1e3, res.Outcome))
 		if i == 0 {
 			learned[0] += fmt.Sprintf(" (backlash %d)", res.Backlash)
 		}
@@ -254,7 +255,7 @@ func plotTune(path string, r *bench.Rig, f physic.Frequency, w *tuneWriter, res 
 		truth = append(truth, plotter.XY{X: x, Y: clipSWR(st.RF.SWR(bench.Hz(f), shaft, st.Temperature()))})
 		if w.fit != nil {
 			if g := w.fit.Gamma2At(x); !math.IsNaN(g) {
-				fitted = append(fitted, plotter.XY{X: x, Y: clipSWR(swrOf(g))})
+				fitted = append(fitted, plotter.XY{X: x, Y: clipSWR(sense.SWRFromGamma2(g))})
 			}
 		}
 	}
@@ -287,14 +288,6 @@ func plotTune(path string, r *bench.Rig, f physic.Frequency, w *tuneWriter, res 
 	return savePlot(p, path)
 }
 
-func swrOf(g2 float64) float64 {
-	g := math.Sqrt(math.Min(math.Max(g2, 0), 1))
-	if g >= 1 {
-		return math.Inf(1)
-	}
-	return (1 + g) / (1 - g)
-}
-
 // plotReplay draws the recording (both directions), the controller's readings, its fitted
 // curve and the chosen position.
 func plotReplay(path string, samples []record.Sample, r *bench.ReplayRig, w *tuneWriter, res tune.Result) error {
@@ -323,7 +316,7 @@ func plotReplay(path string, samples []record.Sample, r *bench.ReplayRig, w *tun
 		for i := range 600 {
 			x := xmin + (xmax-xmin)*float64(i)/599
 			if g := w.fit.Gamma2At(x); !math.IsNaN(g) {
-				fitted = append(fitted, plotter.XY{X: x, Y: clipSWR(swrOf(g))})
+				fitted = append(fitted, plotter.XY{X: x, Y: clipSWR(sense.SWRFromGamma2(g))})
 			}
 		}
 		if err := addLine(p, "fitted curve", fitted, colFit, 1.2); err != nil {

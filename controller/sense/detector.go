@@ -181,6 +181,3 @@ func watts(w float64) physic.Power {
 
 // Watts converts a physic.Power to W.
 func Watts(p physic.Power) float64 { return float64(p) / float64(physic.Watt) }
-
-// PowerOf converts W to a physic.Power.
-func PowerOf(w float64) physic.Power { return watts(w) }

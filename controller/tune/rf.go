@@ -141,35 +141,3 @@ func (p *op) readingTime() time.Duration {
 	}
 	return 3 * time.Millisecond
 }
-
-// noise takes n readings where the motor stands and returns the relative noise of |Γ|²
-// (the standard deviation of its logarithm) and their mean.
-func (p *op) noise(n int) (rel, mean float64, err error) {
-	var logs []float64
-	for range n {
-		s, r, err := p.read("noise")
-		if err != nil {
-			return 0, 0, err
-		}
-		if r.Forward < p.t.o.MinForward {
-			continue
-		}
-		logs = append(logs, math.Log(math.Max(s.Gamma2, 1e-6)))
-		mean += s.Gamma2
-	}
-	if len(logs) < 2 {
-		return 0, 0, fmt.Errorf("%w: no readings with a carrier", ErrCarrierLost)
-	}
-	mean /= float64(len(logs))
-	m := 0.0
-	for _, l := range logs {
-		m += l
-	}
-	m /= float64(len(logs))
-	v := 0.0
-	for _, l := range logs {
-		v += (l - m) * (l - m)
-	}
-	rel = math.Sqrt(v / float64(len(logs)-1))
-	return rel, mean, nil
-}

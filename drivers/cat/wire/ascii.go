@@ -448,31 +448,35 @@ func parseStatus(p []byte, w int) (Status, error) {
 	if err != nil {
 		return Status{}, err
 	}
-	mem, ok := digits(t[stMemory:stTX], 3)
-	if !ok {
-		return Status{}, fmt.Errorf("memory field %q: %w", t[stMemory:stTX], ErrMalformed)
+	// field reads the fixed-width decimal field t[from:to], at most limit.
+	field := func(name string, from, to int, limit uint64) (uint64, error) {
+		v, ok := digits(t[from:to], to-from)
+		if !ok || v > limit {
+			return 0, fmt.Errorf("%s field %q: %w", name, t[from:to], ErrMalformed)
+		}
+		return v, nil
 	}
-	st.Memory = uint16(mem)
-	mode, ok := digits(t[stMode:stVFO], 1)
-	if !ok {
-		return Status{}, fmt.Errorf("mode field %q: %w", t[stMode:stVFO], ErrMalformed)
+	var v uint64
+	if v, err = field("memory", stMemory, stTX, 999); err != nil {
+		return Status{}, err
 	}
-	st.Mode = ASCIIMode(mode)
-	vfo, ok := digits(t[stVFO:stScan], 1)
-	if !ok || vfo > uint64(VFOMemory) {
-		return Status{}, fmt.Errorf("VFO field %q: %w", t[stVFO:stScan], ErrMalformed)
+	st.Memory = uint16(v)
+	if v, err = field("mode", stMode, stVFO, 9); err != nil {
+		return Status{}, err
 	}
-	st.VFO = VFO(vfo)
-	tone, ok := digits(t[stTone:stToneNum], 1)
-	if !ok {
-		return Status{}, fmt.Errorf("tone field %q: %w", t[stTone:stToneNum], ErrMalformed)
+	st.Mode = ASCIIMode(v)
+	if v, err = field("VFO", stVFO, stScan, uint64(VFOMemory)); err != nil {
+		return Status{}, err
 	}
-	st.Tone = uint8(tone)
-	tn, ok := digits(t[stToneNum:stReserved], 2)
-	if !ok {
-		return Status{}, fmt.Errorf("tone number field %q: %w", t[stToneNum:stReserved], ErrMalformed)
+	st.VFO = VFO(v)
+	if v, err = field("tone", stTone, stToneNum, 9); err != nil {
+		return Status{}, err
 	}
-	st.ToneNumber = uint8(tn)
+	st.Tone = uint8(v)
+	if v, err = field("tone number", stToneNum, stReserved, 99); err != nil {
+		return Status{}, err
+	}
+	st.ToneNumber = uint8(v)
 	if c := t[stReserved]; c != ' ' && !isDigit(c) {
 		return Status{}, fmt.Errorf("reserved field %q: %w", c, ErrMalformed)
 	}
