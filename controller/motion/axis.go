@@ -30,6 +30,9 @@ var (
 	ErrSwitchRead = errors.New("switch read failed")
 	// ErrDrive: the drive failed or misbehaved. It latches a fault.
 	ErrDrive = errors.New("drive failure")
+	// ErrOverdue: a move was still running past its deadline (its planned duration plus the
+	// overrun allowance), so the drive is taken to hang. It wraps ErrDrive and latches a fault.
+	ErrOverdue = fmt.Errorf("%w: move overdue", ErrDrive)
 	// ErrStopped: a move ended short of its target (halted, or released, from elsewhere).
 	ErrStopped = errors.New("move stopped short of its target")
 	// ErrNoHomeSwitch: Home was called on an axis without a home switch.
@@ -58,12 +61,32 @@ type Options struct {
 	// SlipWhenReleased says the mechanics can turn with the motor released (a spring, gravity):
 	// Disable then makes the position untrusted.
 	SlipWhenReleased bool
-	Homing           HomingOptions
-	Logger           *slog.Logger // default: discard
+	// Every move has a deadline: its planned duration d (after a ramped stop, the stopped plan's)
+	// plus an overrun allowance of max(OverrunFraction·d, MinOverrun). A move the drive still
+	// reports running past it is taken for a hung drive: the axis stops the drive at once and
+	// latches ErrOverdue, so that no wait on the motor (and no tune carrier waiting on it) lasts
+	// for ever. The check runs at every poll on the axis's clock, so an operation on a hung drive
+	// returns at most one Poll after the deadline.
+	//
+	// OverrunFraction (default 0.25, at most 10) covers a pulse generator that falls behind its
+	// plan in proportion to the move's length: a software step generator on a non-real-time
+	// kernel stretches its delays under load, most at top speed; a quarter is well beyond what
+	// a working one loses (from memory) yet keeps a hang on a long move from costing more than a
+	// quarter of it again.
+	OverrunFraction float64
+	// MinOverrun (default max(4·Poll + Settle, 50 ms)) covers what does not scale with the move:
+	// the axis sees the end only at its next poll, a loaded system oversleeps a poll or two, a
+	// drive behind a bus or a thread takes a while to start, and a closed-loop drive may report
+	// the move running until its rotor has settled, which takes about Settle. The 50 ms floor is
+	// a few scheduling hiccups of a small Linux board (from memory).
+	MinOverrun time.Duration
+	Homing     HomingOptions
+	Logger     *slog.Logger // default: discard
 }
 
 // HomingOptions configure Home. Every leg of homing is a bounded move, so the whole search
-// travels at most MaxTravel + 6·BackOff plus a ramped stop's overshoot.
+// travels at most MaxTravel + 6·BackOff plus a ramped stop's overshoot, and, each leg having
+// its deadline like any move, takes a bounded time even on a hung drive.
 type HomingOptions struct {
 	Dir       Direction // toward the home switch; default Down
 	FastSpeed float64   // seek speed, steps/s; default MaxSpeed/2
@@ -91,6 +114,10 @@ func (o *Options) resolve() error {
 	}
 	if o.Poll == 0 {
 		o.Poll = 2 * time.Millisecond
+	}
+	def(&o.OverrunFraction, 0.25)
+	if o.MinOverrun == 0 {
+		o.MinOverrun = max(4*o.Poll+o.Settle, 50*time.Millisecond)
 	}
 	if o.Approach == 0 {
 		o.Approach = Up
@@ -142,6 +169,13 @@ func (o *Options) resolve() error {
 	if o.Poll < 0 {
 		bad("Poll", o.Poll, "> 0")
 	}
+	// The cap keeps a deadline of the longest plan (maxPlanSeconds) inside time.Duration.
+	if !(o.OverrunFraction > 0 && o.OverrunFraction <= maxOverrunFraction) {
+		bad("OverrunFraction", o.OverrunFraction, fmt.Sprintf("in (0, %v]", float64(maxOverrunFraction)))
+	}
+	if o.MinOverrun < 0 {
+		bad("MinOverrun", o.MinOverrun, "> 0")
+	}
 	if o.Backlash < 0 {
 		bad("Backlash", o.Backlash, ">= 0")
 	}
@@ -165,6 +199,10 @@ func (o *Options) resolve() error {
 	}
 	return nil
 }
+
+// maxOverrunFraction bounds OverrunFraction: a drive ten times slower than its plan is broken,
+// not slow.
+const maxOverrunFraction = 10
 
 // AxisState is a copy of an Axis's state, for status reports and metrics.
 type AxisState struct {
@@ -203,9 +241,10 @@ type Axis struct {
 	backlash Steps
 
 	// The running (or last) move: it began at t0 from position from, on plan prof (with any
-	// ramped stop applied).
+	// ramped stop applied), and counts as hung if still running after deadline.
 	moving    bool
 	t0        time.Time
+	deadline  time.Time
 	from      Steps
 	prof      Profile
 	dir       Direction
@@ -332,6 +371,15 @@ func (a *Axis) Plan(n Steps, speed float64) (Profile, error) {
 // Settle is the settling time waited after a move.
 func (a *Axis) Settle() time.Duration { return a.o.Settle }
 
+// TimeLimit is how long a move on p may run before the axis takes its drive for hung: p's
+// Duration plus the overrun allowance (see Options.OverrunFraction). A wait on the move returns
+// within TimeLimit plus one Poll of its start, plus Settle if it ended in time: a caller that
+// must bound something in time (a tune carrier) can budget with it.
+func (a *Axis) TimeLimit(p Profile) time.Duration {
+	d := p.Duration()
+	return d + max(time.Duration(a.o.OverrunFraction*float64(d)), a.o.MinOverrun)
+}
+
 // MoveThrough moves to target at up to speed (0 = MaxSpeed) without waiting for the mechanics
 // to settle: for a leg that another move follows at once.
 func (a *Axis) MoveThrough(ctx context.Context, target Steps, speed float64) error {
@@ -354,6 +402,9 @@ func (a *Axis) rampStop() {
 	}
 	a.d.Stop(true)
 	a.prof = a.prof.StopAt(a.clk.Now().Sub(a.t0))
+	// The stopped plan ends no later than the original, so its deadline is no later either; a
+	// drive that ignores the stop is caught by it.
+	a.deadline = a.t0.Add(a.TimeLimit(a.prof))
 }
 
 // Distrust marks the position unknown, for example when the tuning found the resonance where the
@@ -503,6 +554,7 @@ func (a *Axis) begin(target Steps, speed float64) error {
 	}
 	a.moving, a.dir, a.planned, a.counted, a.target = true, dir, n, 0, target
 	a.t0, a.from, a.prof = a.clk.Now(), a.pos, p
+	a.deadline = a.t0.Add(a.TimeLimit(p))
 	a.limitsWas = [2]bool{lower, upper}
 	a.unsettled = false
 	return nil
@@ -564,13 +616,29 @@ func (a *Axis) poll() error {
 	}
 	if !running {
 		a.endMove()
+		return nil
+	}
+	// A drive may finish a little late, but one still running past the deadline hangs: without
+	// this check every wait on the motor would last as long as the hang.
+	if now := a.clk.Now(); now.After(a.deadline) {
+		return a.trip(a.overdue(now, emitted))
 	}
 	return nil
 }
 
+// overdue describes a move still running at now, past its deadline.
+func (a *Axis) overdue(now time.Time, emitted int64) error {
+	ms := func(d time.Duration) time.Duration { return d.Round(time.Millisecond) }
+	el, plan := now.Sub(a.t0), a.prof.Duration()
+	return fmt.Errorf("%w: %s still running %v into the move to %d (%s%d steps) planned for %v: %v late, allowed %v; %d of %d pulses emitted",
+		ErrOverdue, a.d, ms(el), a.target, a.dir, a.planned, ms(plan), ms(el-plan), ms(a.deadline.Sub(a.t0)-plan), emitted, a.prof.Total())
+}
+
 // Wait follows the running move until it ends, then waits the settling time. If ctx ends first,
 // Wait begins a ramped stop (which never passes the move's target) and returns ctx's error; the
-// axis may still be moving then, and a later Poll or Wait sees the stop through.
+// axis may still be moving then, and a later Poll or Wait sees the stop through. A move still
+// running past its deadline (see TimeLimit) latches ErrOverdue, so Wait returns at most one Poll
+// after it whatever the drive does.
 func (a *Axis) Wait(ctx context.Context) error {
 	if _, _, err := a.follow(ctx, nil, true); err != nil {
 		return fmt.Errorf("axis: wait: %w", err)
@@ -694,7 +762,8 @@ func abs(s Steps) Steps {
 }
 
 // StopMove brings a running move to a controlled (ramped) stop and waits until it has settled.
-// It returns the latched fault, if any.
+// It returns the latched fault, if any. The stop has a deadline of its own, from the stopped
+// plan: a drive that ignores the stop latches ErrOverdue by then.
 func (a *Axis) StopMove(ctx context.Context) error {
 	a.mu.Lock()
 	a.rampStop()
@@ -726,6 +795,9 @@ func (a *Axis) Enable(ctx context.Context) error {
 // Disable brings a running move to a ramped stop and releases the motor. A released motor no
 // longer holds the gear play, so the play is forgotten; with SlipWhenReleased the position is
 // no longer trusted either. If ctx ends during the stop, the motor is stopped at once instead.
+// The stop is bounded by its deadline, so Disable returns even on a hung drive; a drive that
+// still reports running once released latches a fault (ErrDrive) and leaves the position
+// untrusted.
 func (a *Axis) Disable(ctx context.Context) error {
 	var waitErr error
 	if a.Snapshot().Moving {
@@ -745,15 +817,19 @@ func (a *Axis) Disable(ctx context.Context) error {
 		a.distrust("motor released")
 	}
 	if err != nil {
-		return fmt.Errorf("axis: disable: %w", a.trip(fmt.Errorf("%w: release %s: %w", ErrDrive, a.d, err)))
+		err = a.trip(fmt.Errorf("%w: release %s: %w", ErrDrive, a.d, err))
+	} else if _, running := a.d.Progress(); running {
+		err = a.trip(fmt.Errorf("%w: %s still running after its release", ErrDrive, a.d))
 	}
-	if waitErr != nil {
-		return fmt.Errorf("axis: disable: %w", waitErr)
+	if err := errors.Join(waitErr, err); err != nil {
+		return fmt.Errorf("axis: disable: %w", err)
 	}
 	return nil
 }
 
-// Reset clears a latched fault, an explicit operator action. The position stays untrusted.
+// Reset clears a latched fault, an explicit operator action. The position stays untrusted. It
+// stops the drive first and refuses (ErrDrive) while the drive still reports running, as a hung
+// one may: the fault stays latched until the drive has been seen to.
 func (a *Axis) Reset() error {
 	a.mu.Lock()
 	defer a.mu.Unlock()
@@ -772,7 +848,10 @@ func (a *Axis) Reset() error {
 
 // Halt stops at once and releases the motor, leaving the axis inert (periph's conn.Resource
 // convention). A move cut short at speed, or a motor that may slip, leaves the position
-// untrusted.
+// untrusted. It never waits on the drive. A drive that still reports running after the halt is
+// hung: Halt latches a fault, distrusts the position and returns an error wrapping ErrDrive;
+// the error does not wrap ErrFault, being a failure of the halt itself, which a caller on its
+// way out must log, not a refusal.
 func (a *Axis) Halt() error {
 	a.mu.Lock()
 	defer a.mu.Unlock()
@@ -785,6 +864,11 @@ func (a *Axis) Halt() error {
 	a.forgetPlay()
 	if a.o.SlipWhenReleased {
 		a.distrust("motor released")
+	}
+	if _, running := a.d.Progress(); running {
+		cause := fmt.Errorf("%w: %s still running after a halt", ErrDrive, a.d)
+		a.trip(cause) // latched, so that nothing moves, and no Reset passes, while it runs
+		err = errors.Join(err, cause)
 	}
 	if err != nil {
 		return fmt.Errorf("axis: halt %s: %w", a.d, err)

@@ -30,6 +30,11 @@ type Move struct {
 // Drive is a step/dir stepper driver with an enable line. drivers/ implements it on GPIO and sim/
 // on the simulated mechanics. A Drive emits pulses; it knows nothing of positions or limits,
 // which are the Axis's business.
+//
+// No method may block: the Axis bounds every move in time by polling Progress on its clock, and
+// a call that never returns would defeat that. A move should end (Progress reports it not
+// running) at its profile's Duration, give or take the drive's timing; the Axis takes one still
+// running well after that (Options.OverrunFraction, MinOverrun) for a hung drive.
 type Drive interface {
 	// Start begins emitting m's pulses and returns at once. Starting while a move runs is an
 	// error; so is starting while the motor is disabled.

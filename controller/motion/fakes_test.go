@@ -13,6 +13,7 @@ type fakeDrive struct {
 	clk              *vclock.Clock
 	enabled, running bool
 	mv               Move
+	plan             Profile // the current or last move's profile as started, before any stop
 	t0               time.Time
 	emitted          int64 // pulses of the current or last move
 	net              int64 // signed sum of every pulse ever emitted
@@ -23,6 +24,42 @@ type fakeDrive struct {
 	starts              int
 	abrupt, ramped      int // Stop calls that found a move running
 	halts               int
+
+	// Fault knobs of a hung drive. From the hangFrom-th Start on (1-based; 0 counts as 1), every
+	// move hangs as hang says; deaf makes the drive ignore Stop, Enable(false) and Halt while a
+	// hung move runs. slow above 1 stretches every move's timeline by that factor, as a pulse
+	// generator that falls behind its plan.
+	hang     hangMode
+	hangFrom int
+	freezeAt int64 // hangFrozen: the pulses emitted before the drive freezes
+	deaf     bool
+	slow     float64
+	hung     bool // the current move hangs
+	stops    int  // every Stop call, heard or not
+}
+
+// hangMode is how a hung drive fails to finish a move.
+type hangMode int
+
+const (
+	hangNone   hangMode = iota
+	hangFrozen          // the pulses stop at freezeAt, and Progress keeps saying running
+	hangNoEnd           // every pulse goes out, but Progress never says the move ended
+)
+
+// unhang stands for the operator power-cycling a hung driver: the move is over.
+func (f *fakeDrive) unhang() {
+	f.sync()
+	f.running, f.hung, f.hang, f.deaf = false, false, hangNone, false
+}
+
+// elapsed is the time into the current move on the drive's own, perhaps slow, timeline.
+func (f *fakeDrive) elapsed() time.Duration {
+	el := f.clk.Now().Sub(f.t0)
+	if f.slow > 1 {
+		el = time.Duration(float64(el) / f.slow)
+	}
+	return el
 }
 
 func newFakeDrive(clk *vclock.Clock) *fakeDrive { return &fakeDrive{clk: clk} }
@@ -31,11 +68,14 @@ func (f *fakeDrive) sync() {
 	if !f.running {
 		return
 	}
-	el := f.clk.Now().Sub(f.t0)
+	el := f.elapsed()
 	k := f.mv.Profile.StepsAt(el)
 	done := el >= f.mv.Profile.Duration()
 	if done {
 		k += f.extra
+	}
+	if f.hung && f.hang == hangFrozen {
+		k = min(k, f.freezeAt)
 	}
 	for ; f.emitted < k; f.emitted++ {
 		f.net += int64(f.mv.Dir)
@@ -43,7 +83,7 @@ func (f *fakeDrive) sync() {
 			f.onPulse(f.net)
 		}
 	}
-	if done {
+	if done && !f.hung {
 		f.running = false
 	}
 }
@@ -64,7 +104,8 @@ func (f *fakeDrive) Start(m Move) error {
 		return err
 	}
 	f.starts++
-	f.mv, f.t0, f.emitted, f.running = m, f.clk.Now(), 0, true
+	f.mv, f.plan, f.t0, f.emitted, f.running = m, m.Profile, f.clk.Now(), 0, true
+	f.hung = f.hang != hangNone && f.starts >= max(f.hangFrom, 1)
 	f.sync()
 	return nil
 }
@@ -75,8 +116,9 @@ func (f *fakeDrive) Progress() (int64, bool) {
 }
 
 func (f *fakeDrive) Stop(ramp bool) {
+	f.stops++
 	f.sync()
-	if !f.running {
+	if !f.running || f.deaf && f.hung {
 		return
 	}
 	if !ramp {
@@ -85,7 +127,7 @@ func (f *fakeDrive) Stop(ramp bool) {
 		return
 	}
 	f.ramped++
-	f.mv.Profile = f.mv.Profile.StopAt(f.clk.Now().Sub(f.t0))
+	f.mv.Profile = f.mv.Profile.StopAt(f.elapsed())
 	f.sync()
 }
 
@@ -96,7 +138,7 @@ func (f *fakeDrive) Enable(on bool) error {
 		f.enableErr = nil
 		return err
 	}
-	if !on {
+	if !on && !(f.deaf && f.hung) {
 		f.running = false
 	}
 	f.enabled = on
@@ -106,7 +148,10 @@ func (f *fakeDrive) Enable(on bool) error {
 func (f *fakeDrive) Halt() error {
 	f.sync()
 	f.halts++
-	f.running, f.enabled = false, false
+	if !(f.deaf && f.hung) {
+		f.running = false
+	}
+	f.enabled = false
 	return nil
 }
 

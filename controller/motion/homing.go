@@ -17,8 +17,10 @@ import (
 // Homing ignores the soft limits (the position is unknown; every leg is bounded instead) but not
 // the limit switches: one that trips latches a fault as in any move. ErrSwitchStuck and
 // ErrSwitchNeverTriggered latch no fault: the leg that finds them is a planned move that came to
-// rest under control, so there is nothing to stop, and the caller may retry. Any failure leaves
-// the position untrusted; if ctx ends, a ramped stop may still be under way (Wait for it).
+// rest under control, so there is nothing to stop, and the caller may retry. A leg still running
+// past its deadline latches ErrOverdue as in any move, so Home returns at most one Poll after the
+// hung leg's deadline. Any failure leaves the position untrusted; if ctx ends, a ramped stop may
+// still be under way (Wait for it).
 func (a *Axis) Home(ctx context.Context) error {
 	a.mu.Lock()
 	err := a.ready()
