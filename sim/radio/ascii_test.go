@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"math/rand/v2"
 	"strings"
 	"testing"
 
@@ -210,6 +211,27 @@ func TestASCIIErrors(t *testing.T) {
 	c.expect("ID900;")
 	c.cmd("\r\nFA;\r\n") // line ends between frames are ignored
 	c.expect("FA00014200000;")
+}
+
+// TestASCIIQueryAfterNoiseAnsweredAtOnce: a query that follows a burst of line noise is answered
+// without the controller having to send anything more. The server's Scanner used to fall one
+// read behind for every MaxASCIIFrame bytes of noise, so this query went unanswered until some
+// 60 more had been sent (the client's read deadline turns that into a failure).
+func TestASCIIQueryAfterNoiseAnsweredAtOnce(t *testing.T) {
+	r := newRadio(t, Opts{})
+	c := startASCII(t, r, ASCIIOpts{})
+	// 8 KiB of printable noise without a ';': twice the link's buffer and the server Scanner's
+	// first buffer (DefaultPipeBuffer; bufio's 4096 bytes, from the Go source).
+	rng := rand.New(rand.NewPCG(1, 2))
+	noise := make([]byte, 8<<10)
+	for i := range noise {
+		if noise[i] = byte(' ' + rng.IntN(95)); noise[i] == ';' {
+			noise[i] = '#'
+		}
+	}
+	c.cmd(string(noise) + ";FA;")
+	c.expect("?;")             // the noise's tail, ended by the ';': refused like any garbage
+	c.expect("FA00014200000;") // the radio's default frequency, as in TestASCIIFrequency
 }
 
 func TestASCIIAutoInfo(t *testing.T) {

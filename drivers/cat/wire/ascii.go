@@ -176,21 +176,31 @@ const (
 )
 
 // SplitASCII is a bufio.SplitFunc that returns one ';'-terminated frame per token, terminator
-// included. Carriage returns, line feeds, blanks and NULs between frames are skipped. A run of
-// MaxASCIIFrame bytes without a ';' is discarded, so the rest of that noise up to the next ';'
-// arrives as one frame that does not parse. An incomplete frame at end of input is dropped.
+// included. Carriage returns, line feeds, blanks and NULs between frames are skipped. Noise is
+// cut into windows of MaxASCIIFrame bytes from where a frame would start: a window without a
+// ';' is discarded, so the rest of that noise up to the next ';' arrives as one frame that
+// seldom parses. Every ';' therefore ends a token, and a frame that follows one comes out intact.
+// An incomplete frame at end of input is dropped.
+//
+// It discards all the noise it holds and goes on to the frame after it in one call: a split
+// function that returned no token for discarded noise would make bufio.Scanner read again
+// before looking at the rest of its buffer, and frames already received would wait for later
+// input. It never asks to keep more than MaxASCIIFrame-1 bytes.
 func SplitASCII(data []byte, atEOF bool) (advance int, token []byte, err error) {
 	start := 0
-	for start < len(data) && isFiller(data[start]) {
-		start++
-	}
-	rest := data[start:]
-	n := min(len(rest), MaxASCIIFrame)
-	if i := bytes.IndexByte(rest[:n], ';'); i >= 0 {
-		return start + i + 1, rest[:i+1], nil
-	}
-	if len(rest) >= MaxASCIIFrame {
-		return start + MaxASCIIFrame, nil, nil
+	for {
+		for start < len(data) && isFiller(data[start]) {
+			start++
+		}
+		rest := data[start:]
+		if i := bytes.IndexByte(rest[:min(len(rest), MaxASCIIFrame)], ';'); i >= 0 {
+			return start + i + 1, rest[:i+1], nil
+		}
+		if len(rest) < MaxASCIIFrame {
+			break
+		}
+		// A whole window of noise: drop it and look at what follows in the same call.
+		start += MaxASCIIFrame
 	}
 	if atEOF {
 		return len(data), nil, nil

@@ -39,6 +39,10 @@ type BinaryFrame struct {
 // preamble bytes are absorbed, a frame broken by a new preamble is abandoned for the new one,
 // and frames containing a collision (jam) byte, shorter than an empty command or longer than
 // MaxBinaryFrame are dropped. Every token it returns passes ParseBinaryFrame.
+//
+// Like SplitASCII it drops all the noise it holds and returns the frame after it in one call,
+// so that a bufio.Scanner never reads again with a frame in its buffer, and it never asks to
+// keep more than MaxBinaryFrame-1 bytes.
 func SplitBinary(data []byte, atEOF bool) (advance int, token []byte, err error) {
 	i := 0
 	for {

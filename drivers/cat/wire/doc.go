@@ -30,12 +30,37 @@
 // command, and AppendBinary encodes a BinaryMsg. EncodeBCD and DecodeBCD are the packed-BCD
 // primitives.
 //
+// # Noise and resynchronisation
+//
+// Serial links pick up noise: a radio powering up, a cable plugged in, a collision on the
+// binary bus. The split functions drop it and find the next frame by themselves:
+//
+//   - ASCII: every ';' ends a token, and line ends, blanks and NULs before a frame are skipped.
+//     Noise that runs MaxASCIIFrame bytes from where a frame would start without a ';' is
+//     dropped, window after window of MaxASCIIFrame bytes; what is left of it, up to and
+//     including the next ';', comes out as one token that seldom parses (a radio answers such a
+//     token "?;"). A frame that follows a ';', the end of the frame or of the noise before it, comes
+//     out intact; a frame that noise runs straight into is lost with the noise, since nothing
+//     tells where the one ends and the other begins.
+//   - Binary: two preamble bytes start a frame wherever they appear, so a frame comes out
+//     intact after any noise. Bytes before a preamble, extra preamble bytes, a frame cut short
+//     by a new preamble, and frames holding a jam byte, shorter than an empty command or
+//     longer than MaxBinaryFrame are dropped.
+//
+// Both return each complete frame as soon as they are given it: they drop noise and go on to
+// the frame after it in the same call, so a bufio.Scanner does not wait for more input while a
+// frame sits in its buffer, however much noise came first and however the reads cut the stream.
+// The tokens are the same for every way of cutting it. Neither asks the Scanner to hold back
+// more than MaxASCIIFrame-1 or MaxBinaryFrame-1 bytes, so a flood of noise costs time, never
+// memory, and a Scanner buffer of one frame's length is enough.
+//
 // # Errors
 //
 // Every error wraps one of the sentinels ErrMalformed, ErrUnknown, ErrRange or ErrNotBCD, so that
 // callers can tell "answer with an error frame" from "drop it" with errors.Is.
 //
 // What the caller must do: read from the link through a bufio.Scanner using the matching split
-// function, and pass each token to the matching parser. The codec holds no state; a controller
+// function (with bufio's default buffer, or one of at least MaxASCIIFrame or MaxBinaryFrame
+// bytes), and pass each token to the matching parser. The codec holds no state; a controller
 // on the binary bus must skip the echo of its own frames (the From address tells them apart).
 package wire
