@@ -6,6 +6,8 @@ import (
 	"io"
 	"math"
 	"os"
+	"reflect"
+	"strconv"
 	"strings"
 	"time"
 
@@ -283,57 +285,288 @@ func (s Spec) Conversion() time.Duration {
 	return time.Duration(s.Coupler.ConversionUS * float64(time.Microsecond))
 }
 
-// Validate reports every problem at once, each with its key.
+// Validate reports every problem at once, each with its key and the accepted range. Every
+// numeric key is first checked against its range (KeyRange); then the cross-key rules and the
+// parts' own validation run for each section whose keys are all in range (for a section with a
+// bad key they would only report it again in other words).
 func (s Spec) Validate() error {
 	var errs []error
-	add := func(key string, err error) {
-		if err != nil {
-			errs = append(errs, fmt.Errorf("[%s] %w", key, err))
+	add := func(section string, err error) {
+		switch {
+		case err == nil:
+		case section == "":
+			errs = append(errs, err)
+		default:
+			errs = append(errs, fmt.Errorf("[%s] %w", section, err))
 		}
 	}
-	add("loop", s.Model().Validate())
-	add("feed", s.FeedModel().Validate())
-	if _, err := s.CapacitorModel(); err != nil {
-		add("capacitor", err)
+	bad := map[string]bool{}
+	ranges := keyRanges()
+	walkKeys(reflect.ValueOf(s), "", func(key string, v float64, hasRange bool) {
+		section, name := splitKey(key)
+		r, ok := ranges[key]
+		if !ok || !hasRange {
+			bad[topSection(key)] = true
+			add(section, fmt.Errorf("%s: no accepted range is known for this key", name))
+			return
+		}
+		if err := r.Check(v); err != nil {
+			bad[topSection(key)] = true
+			add(section, fmt.Errorf("%s %w", name, err))
+		}
+	})
+	for i, p := range s.Capacitor.Table {
+		for j, col := range [2]string{"fraction", "pf"} {
+			if err := tableRange(j).Check(p[j]); err != nil {
+				bad["capacitor"] = true
+				add("capacitor", fmt.Errorf("table point %d: %s %w", i+1, col, err))
+			}
+		}
 	}
-	if s.Capacitor.EndMarginPct < 0 || s.Capacitor.EndMarginPct > 20 {
-		add("capacitor", fmt.Errorf("end_margin_pct %g: want 0 to 20", s.Capacitor.EndMarginPct))
+	if !bad["loop"] {
+		add("loop", s.Model().Validate())
 	}
-	d := s.Drive
-	if d.StepsPerRev < 4 || d.StepsPerRev > 10000 {
-		add("drive", fmt.Errorf("steps_per_rev %d: want 4 to 10000", d.StepsPerRev))
+	if !bad["feed"] {
+		add("feed", s.FeedModel().Validate())
 	}
-	if d.Microsteps < 1 || d.Microsteps > 256 {
-		add("drive", fmt.Errorf("microsteps %d: want 1 to 256", d.Microsteps))
+	if !bad["capacitor"] {
+		if len(s.Capacitor.Table) == 0 && !(s.Capacitor.MinPF < s.Capacitor.MaxPF) {
+			add("capacitor", fmt.Errorf("min_pf %g, max_pf %g: want min_pf below max_pf", s.Capacitor.MinPF, s.Capacitor.MaxPF))
+		} else if _, err := s.CapacitorModel(); err != nil {
+			add("capacitor", err)
+		}
 	}
-	if d.GearRatio < 1 || d.GearRatio > 1000 {
-		add("drive", fmt.Errorf("gear_ratio %d: want 1 to 1000", d.GearRatio))
+	if h := s.Drive.Home; h != nil && !bad["drive"] && !bad["capacitor"] && h.AtTurns > s.Capacitor.SpanTurns {
+		add("drive.home", fmt.Errorf("at_turns %g: want at most the capacitor's span_turns %g", h.AtTurns, s.Capacitor.SpanTurns))
 	}
-	if d.BacklashSteps < 0 || d.BacklashSteps > 5000 {
-		add("drive", fmt.Errorf("backlash_steps %g: want 0 to 5000", d.BacklashSteps))
+	if !bad["coupler"] {
+		if co, err := s.CouplerOptions(); err != nil {
+			add("coupler", err)
+		} else {
+			add("coupler", co.Validate())
+		}
 	}
-	if !(d.MaxSpeed > 0) || !(d.Accel > 0) || !(d.PulloutSpeed > 0) || !(d.MaxAccel > 0) {
-		add("drive", fmt.Errorf("max_speed_sps %g, accel_sps2 %g, pullout_sps %g, max_accel_sps2 %g: want all more than 0", d.MaxSpeed, d.Accel, d.PulloutSpeed, d.MaxAccel))
-	}
-	if d.MissRate < 0 || d.MissRate > 0.01 {
-		add("drive", fmt.Errorf("miss_rate %g: want 0 to 0.01", d.MissRate))
-	}
-	if d.SettleMS < 0 || d.SettleMS > 2000 || d.SettleSteps < 0 || d.SettleSteps > 100 {
-		add("drive", fmt.Errorf("settle_ms %g (0..2000), settle_amplitude_steps %g (0..100) out of range", d.SettleMS, d.SettleSteps))
-	}
-	if d.Home != nil && (d.Home.AtTurns < -1 || d.Home.AtTurns > s.Capacitor.SpanTurns || d.Home.HysteresisSteps < 0) {
-		add("drive.home", fmt.Errorf("at_turns %g: want within -1 and the capacitor span %g; hysteresis_steps %g: want 0 or more", d.Home.AtTurns, s.Capacitor.SpanTurns, d.Home.HysteresisSteps))
-	}
-	if co, err := s.CouplerOptions(); err != nil {
-		add("coupler", err)
-	} else {
-		add("coupler", co.Validate())
-	}
-	add("environment", s.EnvOptions().Validate())
-	if !(s.Radio.FrequencyHz > 0) || !(s.Radio.MaxPowerW > 0) {
-		add("radio", fmt.Errorf("frequency_hz %g, max_power_w %g: want both more than 0", s.Radio.FrequencyHz, s.Radio.MaxPowerW))
+	if !bad["environment"] {
+		add("environment", s.EnvOptions().Validate())
 	}
 	return errors.Join(errs...)
+}
+
+// Range is the accepted range of a numeric value: Min to Max inclusive, or more than Min and at
+// most Max when MinOpen; both are finite. When Zero is set, 0 is accepted too and selects what
+// Zero names (copper, an estimate, a lossless part). NaN and the infinities are never in a range.
+type Range struct {
+	Min, Max float64
+	MinOpen  bool
+	Zero     string
+	Unit     string
+	Hint     string // an easier reading of the range, e.g. "100 kHz to 60 MHz"
+}
+
+// Contains reports whether v is in r.
+func (r Range) Contains(v float64) bool {
+	if r.Zero != "" && v == 0 {
+		return true
+	}
+	if r.MinOpen {
+		return v > r.Min && v <= r.Max
+	}
+	return v >= r.Min && v <= r.Max // false for NaN; ±Inf lie outside every finite range
+}
+
+// String says the range as the errors put it, e.g. "0.1 to 20 m" or "0 (copper) or 1e-09 to
+// 1e-05 Ω·m".
+func (r Range) String() string {
+	var b strings.Builder
+	if r.Zero != "" {
+		fmt.Fprintf(&b, "0 (%s) or ", r.Zero)
+	}
+	if r.MinOpen {
+		fmt.Fprintf(&b, "more than %s and at most %s", formatNumber(r.Min), formatNumber(r.Max))
+	} else {
+		fmt.Fprintf(&b, "%s to %s", formatNumber(r.Min), formatNumber(r.Max))
+	}
+	if r.Unit != "" {
+		b.WriteString(" " + r.Unit)
+	}
+	if r.Hint != "" {
+		b.WriteString(" (" + r.Hint + ")")
+	}
+	return b.String()
+}
+
+// Check returns nil for a value in r, otherwise an error such as "NaN: want 0.1 to 20 m".
+func (r Range) Check(v float64) error {
+	if r.Contains(v) {
+		return nil
+	}
+	return fmt.Errorf("%s: want %s", formatNumber(v), r)
+}
+
+// formatNumber writes v plainly where that stays short (0.022, 60000000) and in exponent form
+// otherwise (1e-05, 1e+09).
+func formatNumber(v float64) string {
+	if a := math.Abs(v); v == 0 || a >= 1e-4 && a < 1e9 {
+		return strconv.FormatFloat(v, 'f', -1, 64)
+	}
+	return strconv.FormatFloat(v, 'g', -1, 64)
+}
+
+// FrequencyRange is the accepted range of every frequency a station description or a tool
+// takes: from the 2200 m band (136 kHz) to the 6 m band (54 MHz), with a little room (from
+// memory). Above it a loop of any usable size is no longer small against the wavelength, and
+// the small-loop model means nothing.
+func FrequencyRange() Range {
+	return Range{Min: 100e3, Max: 60e6, Unit: "Hz", Hint: "100 kHz to 60 MHz"}
+}
+
+// KeyRange returns the accepted range of the numeric key (e.g. "loop.diameter_m",
+// "drive.home.at_turns") of a station description; ok is false for a key that has none.
+// The ranges are generous: they reject what no real build has, not what is merely unusual.
+// Cross-key rules (min below max, a conductor thinner than a tenth of the turn diameter, ...)
+// are the parts' own and are checked by Validate.
+func KeyRange(key string) (r Range, ok bool) {
+	r, ok = keyRanges()[key]
+	return r, ok
+}
+
+func keyRanges() map[string]Range {
+	return map[string]Range{
+		"seed": {Min: 0, Max: math.MaxUint64},
+
+		// One to four turns is usual, a few small loops have more; transmitting loops are built
+		// from about 0.3 m to 5 m across of 6 mm to 100 mm tube (common practice). The bounds
+		// are wider still; whether the loop is small against the wavelength is a question of
+		// frequency, which the design calculator answers per frequency.
+		"loop.turns":       {Min: 1, Max: 8},
+		"loop.diameter_m":  {Min: 0.1, Max: 20, Unit: "m"},
+		"loop.conductor_m": {Min: 0.0005, Max: 0.2, Unit: "m"},
+		"loop.spacing_m":   {Min: 0, Max: 2, Unit: "m"},
+		// Silver 1.6e-8 to stainless steel 7e-7 Ω·m (CRC Handbook of Chemistry and Physics,
+		// from memory), with room either side.
+		"loop.resistivity_ohm_m": {Min: 1e-9, Max: 1e-5, Zero: "copper", Unit: "Ω·m"},
+		"loop.temp_coeff_per_k":  {Min: 0, Max: 0.02, Unit: "/K"},
+		"loop.expansion_per_k":   {Min: 0, Max: 1e-4, Unit: "/K"},
+		// A loop's own loss is tens of milliohms; a hundred ohms is a dummy load (common practice).
+		"loop.extra_loss_ohm":  {Min: 0, Max: 100, Unit: "Ω"},
+		"loop.ground_loss_ohm": {Min: 0, Max: 100, Unit: "Ω"},
+		// A poor capacitor has a Q of some hundreds, a good vacuum one tens of thousands (from memory).
+		"loop.capacitor_q": {Min: 10, Max: 1e7, Zero: "lossless"},
+		"loop.proximity":   {Min: 1, Max: 10, Zero: "estimate"},
+		"loop.stray_pf":    {Min: 0, Max: 1000, Unit: "pF"},
+
+		"feed.design_hz":  FrequencyRange(),
+		"feed.octave_swr": {Min: 1, Max: 10},
+
+		// Air and vacuum variables run from a few pF to a few thousand (common practice).
+		"capacitor.min_pf":         {Min: 0.1, Max: 10000, Unit: "pF"},
+		"capacitor.max_pf":         {Min: 0.1, Max: 10000, Unit: "pF"},
+		"capacitor.span_turns":     {Min: 0.01, Max: 100, Unit: "turns"},
+		"capacitor.temp_ppm_per_k": {Min: -1000, Max: 1000, Unit: "ppm/K"},
+		"capacitor.end_margin_pct": {Min: 0, Max: 20, Unit: "%"},
+
+		// Steppers of 4 to a few thousand steps a revolution, drivers to 256 microsteps (common
+		// practice); speeds and ramps up to what a microstepping driver can pulse, about 1e6
+		// steps/s (from memory).
+		"drive.steps_per_rev":          {Min: 4, Max: 10000},
+		"drive.microsteps":             {Min: 1, Max: 256},
+		"drive.gear_ratio":             {Min: 1, Max: 1000},
+		"drive.backlash_steps":         {Min: 0, Max: 5000, Unit: "steps"},
+		"drive.max_speed_sps":          {Min: 1, Max: 1e6, Unit: "steps/s"},
+		"drive.accel_sps2":             {Min: 1, Max: 1e8, Unit: "steps/s²"},
+		"drive.pullout_sps":            {Min: 1, Max: 1e6, Unit: "steps/s"},
+		"drive.max_accel_sps2":         {Min: 1, Max: 1e8, Unit: "steps/s²"},
+		"drive.miss_rate":              {Min: 0, Max: 0.01},
+		"drive.settle_ms":              {Min: 0, Max: 2000, Unit: "ms"},
+		"drive.settle_amplitude_steps": {Min: 0, Max: 100, Unit: "steps"},
+		"drive.home.at_turns":          {Min: -1, Max: 100, Unit: "turns"},
+		"drive.home.hysteresis_steps":  {Min: 0, Max: 5000, Unit: "steps"},
+
+		// Couplers sample 20–40 dB down with 20–35 dB directivity (common practice); log
+		// detectors run from about −90 to +20 dBm at some tens of mV/dB (from memory).
+		"coupler.coupling_db":         {Min: 0, Max: 60, Unit: "dB"},
+		"coupler.directivity_db":      {Min: 6, Max: 80, Unit: "dB"},
+		"coupler.leak_phase_deg":      {Min: -360, Max: 360, Unit: "°"},
+		"coupler.slope_mv_per_db":     {Min: 0.1, Max: 1000, Unit: "mV/dB"},
+		"coupler.intercept_dbm":       {Min: -150, Max: 50, Unit: "dBm"},
+		"coupler.floor_dbm":           {Min: -150, Max: 50, Unit: "dBm"},
+		"coupler.ceiling_dbm":         {Min: -150, Max: 50, Unit: "dBm"},
+		"coupler.sensitivity_v_per_w": {Min: 0, Max: 1e6, Unit: "V/W"},
+		"coupler.max_volts":           {Min: 0, Max: 100, Unit: "V"},
+		"coupler.adc_bits":            {Min: 8, Max: 24},
+		"coupler.adc_full_scale_v":    {Min: 0.1, Max: 10, Unit: "V"},
+		"coupler.adc_noise_mv":        {Min: 0, Max: 100, Unit: "mV"},
+		"coupler.conversion_us":       {Min: 1, Max: 1e6, Unit: "µs"},
+
+		// The coldest and hottest places loops are put up, and the daily swings there (from memory).
+		"environment.mean_c":    {Min: -50, Max: 60, Unit: "°C"},
+		"environment.swing_k":   {Min: 0, Max: 30, Unit: "K"},
+		"environment.peak_hour": {Min: 0, Max: 24, Unit: "h"},
+		"environment.wander_k":  {Min: 0, Max: 20, Unit: "K"},
+
+		"radio.frequency_hz": FrequencyRange(),
+		// Ten kilowatts is above every amateur licence's limit (from memory).
+		"radio.max_power_w": {Min: 0, MinOpen: true, Max: 10000, Unit: "W"},
+	}
+}
+
+// tableRange is the range of column i of the capacitor table: [fraction of travel, pF].
+func tableRange(i int) Range {
+	if i == 0 {
+		return Range{Min: 0, Max: 1}
+	}
+	return keyRanges()["capacitor.max_pf"]
+}
+
+// walkKeys calls visit for every numeric key of the description held in v (a struct), with the
+// key's TOML path. A numeric kind it cannot read as a number (a new slice, a map) is visited
+// with hasRange false, so that it cannot pass unchecked; the capacitor table is checked apart.
+func walkKeys(v reflect.Value, prefix string, visit func(key string, x float64, hasRange bool)) {
+	t := v.Type()
+	for i := range t.NumField() {
+		tag := strings.Split(t.Field(i).Tag.Get("toml"), ",")[0]
+		if tag == "" || tag == "-" {
+			continue
+		}
+		key := tag
+		if prefix != "" {
+			key = prefix + "." + tag
+		}
+		f := v.Field(i)
+		switch f.Kind() {
+		case reflect.Struct:
+			walkKeys(f, key, visit)
+		case reflect.Pointer:
+			if !f.IsNil() && f.Elem().Kind() == reflect.Struct {
+				walkKeys(f.Elem(), key, visit)
+			}
+		case reflect.Float32, reflect.Float64:
+			visit(key, f.Float(), true)
+		case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64:
+			visit(key, float64(f.Int()), true)
+		case reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
+			visit(key, float64(f.Uint()), true)
+		case reflect.String, reflect.Bool:
+		default:
+			if key != "capacitor.table" {
+				visit(key, 0, false)
+			}
+		}
+	}
+}
+
+// splitKey splits "drive.home.at_turns" into the section "drive.home" and the name "at_turns".
+func splitKey(key string) (section, name string) {
+	if i := strings.LastIndex(key, "."); i >= 0 {
+		return key[:i], key[i+1:]
+	}
+	return "", key
+}
+
+// topSection is the first part of a key: "drive" for "drive.home.at_turns".
+func topSection(key string) string {
+	section, _, _ := strings.Cut(key, ".")
+	return section
 }
 
 // fmtSpec prints a spec in full, following the home switch pointer, for comparisons.

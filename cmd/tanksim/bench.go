@@ -16,17 +16,25 @@ import (
 	"github.com/tankd/tankd/sim/bench"
 )
 
+// Ranges of the benchmark's flags: a hundred thousand scenarios take hours; a thousand workers
+// is more CPUs than any one machine the benchmark runs on (both from memory).
+var (
+	scenariosRange = sim.Range{Min: 1, Max: 100000}
+	workersRange   = sim.Range{Min: 1, Max: 1000, Zero: "one per CPU"}
+)
+
 func runBench(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("bench", stderr)
-	n := fs.Int("n", 200, "number of scenarios")
-	seed := fs.Uint64("seed", 1, "seed: the same seed gives the same scenarios and results")
+	nf := newNumFlags(fs)
+	n := nf.Int("n", 200, scenariosRange, "number of `scenarios`")
+	seed := nf.Seed("seed", 1, "`seed`: the same seed gives the same scenarios and results")
 	mapState := fs.String("map", "cold", "memory map before the measured tune: cold (empty) or warm (calibrated and learned from earlier tunes)")
 	asJSON := fs.Bool("json", false, "print the summary as JSON")
 	scenarios := fs.String("scenarios", "", "station descriptions (TOML, comma-separated) to bench instead of the built-in presets")
 	presets := fs.String("stations", "", "built-in presets to draw from, comma-separated (default all)")
 	bands := fs.String("bands", "160m,80m,40m", "bands to draw frequencies from")
 	perturb := fs.Bool("perturb", true, "let each simulated loop differ from its description (strays, size, capacitor range) as real ones do")
-	workers := fs.Int("workers", 0, "parallel workers (default: one per CPU)")
+	workers := nf.Int("workers", 0, workersRange, "parallel `workers`")
 	cases := fs.String("cases", "", "also write every scenario's outcome per strategy to this CSV file")
 	quiet := fs.Bool("q", false, "no progress on standard error")
 	fs.Usage = func() {
@@ -39,11 +47,8 @@ knows the best position. Times are virtual seconds.
 flags:`)
 		fs.PrintDefaults()
 	}
-	if err := parseFlags(fs, args); err != nil {
+	if err := nf.parse(args); err != nil {
 		return err
-	}
-	if *n < 1 || *n > 100000 {
-		return usageError{fmt.Errorf("-n %d: want 1 to 100000", *n)}
 	}
 	m := bench.MapState(*mapState)
 	if m != bench.Cold && m != bench.Warm {

@@ -6,25 +6,29 @@ import (
 	"math"
 
 	"gonum.org/v1/plot/plotter"
+
+	"github.com/tankd/tankd/sim"
 )
+
+// widthRange is how far either side of the dip a curve may reach: a hundred bandwidths is
+// far past where the SWR is worth drawing (common practice).
+var widthRange = sim.Range{Min: 0, MinOpen: true, Max: 100, Unit: "bandwidths"}
 
 func runCurve(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("curve", stderr)
-	geo := addGeometryFlags(fs)
-	freq := fs.Float64("freq", 3.75e6, "operating frequency, Hz")
+	nf := newNumFlags(fs)
+	geo := addGeometryFlags(fs, nf)
+	freq := nf.Float("freq", 3.75e6, sim.FrequencyRange(), "operating frequency")
 	against := fs.String("x", "step", "horizontal axis: step (SWR against motor step at -freq) or freq (SWR against frequency with the capacitor at -freq's dip)")
-	width := fs.Float64("width", 3, "span either side of the dip, in loaded bandwidths")
-	temp := fs.Float64("temp", 20, "temperature, °C")
+	width := nf.Float("width", 3, widthRange, "span either side of the dip, in loaded bandwidths")
+	temp := nf.Float("temp", 20, temperatureRange, "temperature")
 	out := fs.String("o", "curve.svg", "output file, .svg or .png")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: tanksim curve [flags]\n\nPlots the loop's true SWR (no coupler, no noise) around the dip.\n\nflags:")
 		fs.PrintDefaults()
 	}
-	if err := parseFlags(fs, args); err != nil {
+	if err := nf.parse(args); err != nil {
 		return err
-	}
-	if !(*width > 0) || *width > 100 {
-		return usageError{fmt.Errorf("-width %g: want more than 0 and at most 100 bandwidths", *width)}
 	}
 	s, err := geo.spec(fs)
 	if err != nil {

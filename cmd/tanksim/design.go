@@ -17,31 +17,51 @@ import (
 )
 
 // designRow is one frequency of a design report; its JSON keys are the report's documented
-// interface.
+// interface. A frequency the loop cannot be tuned to, or where the small-loop model means
+// nothing, has Covered false, a Reason, and null for every figure the model cannot give there.
 type designRow struct {
-	Band         string  `json:"band,omitempty"`
-	FrequencyHz  float64 `json:"frequency_hz"`
-	InductanceH  float64 `json:"inductance_h"`
-	CapacitanceF float64 `json:"capacitance_f"`
-	QUnloaded    float64 `json:"q_unloaded"`
-	QLoaded      float64 `json:"q_loaded"`
-	BandwidthHz  float64 `json:"bandwidth_hz"`
-	RRadOhm      float64 `json:"r_rad_ohm"`
-	RLossOhm     float64 `json:"r_loss_ohm"`
-	Efficiency   float64 `json:"efficiency"`
-	EfficiencyDB float64 `json:"efficiency_db"`
-	CapVoltageV  float64 `json:"cap_voltage_v"`      // rms
-	CapVoltagePk float64 `json:"cap_voltage_peak_v"` // peak
-	CurrentA     float64 `json:"current_a"`          // rms
-	InRange      bool    `json:"capacitor_in_range"`
-	SmallLoop    bool    `json:"small_loop_valid"`
+	Band         string   `json:"band,omitempty"`
+	FrequencyHz  float64  `json:"frequency_hz"`
+	InductanceH  float64  `json:"inductance_h"`
+	CapacitanceF *float64 `json:"capacitance_f"`
+	QUnloaded    *float64 `json:"q_unloaded"`
+	QLoaded      *float64 `json:"q_loaded"`
+	BandwidthHz  *float64 `json:"bandwidth_hz"`
+	RRadOhm      *float64 `json:"r_rad_ohm"`
+	RLossOhm     *float64 `json:"r_loss_ohm"`
+	Efficiency   *float64 `json:"efficiency"`
+	EfficiencyDB *float64 `json:"efficiency_db"`
+	CapVoltageV  *float64 `json:"cap_voltage_v"`      // rms
+	CapVoltagePk *float64 `json:"cap_voltage_peak_v"` // peak
+	CurrentA     *float64 `json:"current_a"`          // rms
+	InRange      bool     `json:"capacitor_in_range"`
+	SmallLoop    bool     `json:"small_loop_valid"`
+	// CircumferenceWL is the turn circumference in wavelengths.
+	CircumferenceWL float64 `json:"circumference_wavelengths"`
+	Covered         bool    `json:"covered"`
+	Reason          string  `json:"reason,omitempty"`
+
+	e loop.Electrical // the model's figures, for the text report of a covered row
 }
 
+// How far the small-loop model holds (common practice): its figures are good while the turn
+// circumference is under a tenth of the wavelength, rough up to a quarter, and beyond that mean
+// nothing, for the current along the conductor is far from uniform.
+const (
+	smallLoopWavelengths  = 0.1
+	modelLimitWavelengths = 0.25
+)
+
+// frequencyList is a flag of comma-separated frequencies (numFlags.Frequencies).
 type frequencyList struct {
+	name  string
 	freqs []float64
 }
 
 func (l *frequencyList) String() string {
+	if l == nil {
+		return ""
+	}
 	parts := make([]string, len(l.freqs))
 	for i, f := range l.freqs {
 		parts[i] = strconv.FormatFloat(f, 'f', -1, 64)
@@ -49,6 +69,7 @@ func (l *frequencyList) String() string {
 	return strings.Join(parts, ",")
 }
 
+// Set implements flag.Value: it reads the numbers and leaves their range to check.
 func (l *frequencyList) Set(s string) error {
 	for _, p := range strings.Split(s, ",") {
 		p = strings.TrimSpace(p)
@@ -56,36 +77,51 @@ func (l *frequencyList) Set(s string) error {
 			continue
 		}
 		f, err := strconv.ParseFloat(p, 64)
-		if err != nil || !(f > 0) || f > 1e9 {
-			return fmt.Errorf("frequency %q: want a frequency in Hz, e.g. 3750000", p)
+		if err != nil {
+			return fmt.Errorf("frequency %q: want a frequency in Hz, e.g. 3750000, %s", p, sim.FrequencyRange())
 		}
 		l.freqs = append(l.freqs, f)
 	}
 	return nil
 }
 
-// geometryFlags adds the loop-shape flags shared by the commands that take a loop, applied over
-// the station description named by -config.
-type geometryFlags struct {
-	config                              string
-	turns                               int
-	diameter, conductor, spacing, stray float64
-	esr                                 float64
-	capMin, capMax                      float64
-	set                                 map[string]bool
+// geometryFlag is a loop-shape flag and the station description's key it sets.
+type geometryFlag struct {
+	name, key, usage string
 }
 
-func addGeometryFlags(fs *flag.FlagSet) *geometryFlags {
-	g := &geometryFlags{}
+func geometryFlagKeys() []geometryFlag {
+	return []geometryFlag{
+		{"turns", "loop.turns", "number of `turns`"},
+		{"diameter", "loop.diameter_m", "turn diameter"},
+		{"conductor", "loop.conductor_m", "conductor outside diameter"},
+		{"spacing", "loop.spacing_m", "centre-to-centre turn spacing"},
+		{"stray", "loop.stray_pf", "stray capacitance across the capacitor"},
+		{"esr", "loop.extra_loss_ohm", "extra series loss (capacitor ESR, joints; 0 leaves conductor and radiation loss only)"},
+		{"cmin", "capacitor.min_pf", "tuning capacitor minimum"},
+		{"cmax", "capacitor.max_pf", "tuning capacitor maximum"},
+	}
+}
+
+// geometryFlags adds the loop-shape flags shared by the commands that take a loop, applied over
+// the station description named by -config. Each takes its key's range from the description.
+type geometryFlags struct {
+	config string
+	turns  *int
+	floats map[string]*float64 // by flag name
+}
+
+func addGeometryFlags(fs *flag.FlagSet, nf *numFlags) *geometryFlags {
+	g := &geometryFlags{floats: map[string]*float64{}}
 	fs.StringVar(&g.config, "config", "", "station description (TOML); default: the built-in demo station")
-	fs.IntVar(&g.turns, "turns", 0, "number of turns, 1–4")
-	fs.Float64Var(&g.diameter, "diameter", 0, "turn diameter, m")
-	fs.Float64Var(&g.conductor, "conductor", 0, "conductor outside diameter, m")
-	fs.Float64Var(&g.spacing, "spacing", 0, "centre-to-centre turn spacing, m")
-	fs.Float64Var(&g.stray, "stray", 0, "stray capacitance across the capacitor, pF")
-	fs.Float64Var(&g.esr, "esr", 0, "extra series loss (capacitor ESR, joints), Ω; -esr 0 leaves conductor and radiation loss only")
-	fs.Float64Var(&g.capMin, "cmin", 0, "tuning capacitor minimum, pF")
-	fs.Float64Var(&g.capMax, "cmax", 0, "tuning capacitor maximum, pF")
+	for _, gf := range geometryFlagKeys() {
+		r, _ := sim.KeyRange(gf.key) // every key has one: TestGeometryFlagsTakeTheirKeysRanges
+		if gf.name == "turns" {
+			g.turns = nf.Int(gf.name, 0, r, gf.usage)
+			continue
+		}
+		g.floats[gf.name] = nf.Float(gf.name, 0, r, gf.usage)
+	}
 	return g
 }
 
@@ -101,22 +137,22 @@ func (g *geometryFlags) spec(fs *flag.FlagSet) (sim.Spec, error) {
 	fs.Visit(func(f *flag.Flag) {
 		switch f.Name {
 		case "turns":
-			s.Loop.Turns = g.turns
+			s.Loop.Turns = *g.turns
 		case "diameter":
-			s.Loop.DiameterM = g.diameter
+			s.Loop.DiameterM = *g.floats[f.Name]
 		case "conductor":
-			s.Loop.ConductorM = g.conductor
+			s.Loop.ConductorM = *g.floats[f.Name]
 		case "spacing":
-			s.Loop.SpacingM = g.spacing
+			s.Loop.SpacingM = *g.floats[f.Name]
 		case "stray":
-			s.Loop.StrayPF = g.stray
+			s.Loop.StrayPF = *g.floats[f.Name]
 		case "esr":
-			s.Loop.ExtraLossOhm, s.Loop.CapacitorQ, s.Loop.GroundOhm = g.esr, 0, 0
+			s.Loop.ExtraLossOhm, s.Loop.CapacitorQ, s.Loop.GroundOhm = *g.floats[f.Name], 0, 0
 		case "cmin":
-			s.Capacitor.MinPF = g.capMin
+			s.Capacitor.MinPF = *g.floats[f.Name]
 			s.Capacitor.Table = nil
 		case "cmax":
-			s.Capacitor.MaxPF = g.capMax
+			s.Capacitor.MaxPF = *g.floats[f.Name]
 			s.Capacitor.Table = nil
 		}
 	})
@@ -126,27 +162,29 @@ func (g *geometryFlags) spec(fs *flag.FlagSet) (sim.Spec, error) {
 	return s, nil
 }
 
+// Ranges of the design calculator's own flags. Ten kilowatts is above every amateur licence's
+// limit; −50 to 100 °C runs from the coldest winter night to copper in summer sun carrying
+// kilowatts (both from memory).
+var (
+	powerRange       = sim.Range{Min: 0, MinOpen: true, Max: 10000, Unit: "W"}
+	temperatureRange = sim.Range{Min: -50, Max: 100, Unit: "°C"}
+)
+
 func runDesign(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("design", stderr)
-	geo := addGeometryFlags(fs)
-	var freqs frequencyList
-	fs.Var(&freqs, "freq", "frequencies to report, Hz, comma-separated")
+	nf := newNumFlags(fs)
+	geo := addGeometryFlags(fs, nf)
+	freqs := nf.Frequencies("freq", "frequencies to report in `Hz`, comma-separated, each "+sim.FrequencyRange().String())
 	bands := fs.String("band", "", "bands to report at their edges and centre, e.g. 160m,80m (default 160m,80m,40m without -freq)")
-	power := fs.Float64("power", 100, "transmitter power delivered to the loop, W")
-	temp := fs.Float64("temp", 20, "conductor temperature, °C")
+	power := nf.Float("power", 100, powerRange, "transmitter power delivered to the loop")
+	temp := nf.Float("temp", 20, temperatureRange, "conductor temperature")
 	asJSON := fs.Bool("json", false, "print a JSON array, one object per frequency")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: tanksim design [flags]\n\nElectrical design of a small transmitting loop. Geometry and capacitor come from -config\n(a station description) and the flags given, which override it.\n\nflags:")
 		fs.PrintDefaults()
 	}
-	if err := parseFlags(fs, args); err != nil {
+	if err := nf.parse(args); err != nil {
 		return err
-	}
-	if !(*power > 0) || *power > 10000 {
-		return usageError{fmt.Errorf("-power %g: want more than 0 and at most 10000 W", *power)}
-	}
-	if *temp < -50 || *temp > 100 {
-		return usageError{fmt.Errorf("-temp %g: want −50 to 100 °C", *temp)}
 	}
 	s, err := geo.spec(fs)
 	if err != nil {
@@ -185,8 +223,7 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 	capOpts := rf.Capacitor().Options()
 	rows := make([]designRow, len(points))
 	for i, p := range points {
-		e := rf.Electrical(p.f, *power, *temp)
-		rows[i] = rowOf(p.band, e, e.Capacitance >= capOpts.Min && e.Capacitance <= capOpts.Max, s.Model().SmallLoopLimit(p.f))
+		rows[i] = rowOf(p.band, rf.Electrical(p.f, *power, *temp), rf.Model(), capOpts.Min, capOpts.Max)
 	}
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
@@ -197,23 +234,74 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 		fmt.Fprintln(stderr, caution)
 		return nil
 	}
-	printDesign(stdout, s, rf.Model(), capOpts.Min, capOpts.Max, rows, bandList, *power, *temp)
+	printDesign(stdout, rf.Model(), capOpts.Min, capOpts.Max, rows, bandList, *power, *temp)
 	fmt.Fprintln(stdout)
 	fmt.Fprintln(stdout, caution)
 	return nil
 }
 
-func rowOf(bandName string, e loop.Electrical, inRange, small bool) designRow {
-	return designRow{
-		Band: bandName, FrequencyHz: e.Frequency, InductanceH: e.Inductance, CapacitanceF: e.Capacitance,
-		QUnloaded: e.QUnloaded, QLoaded: e.QLoaded, BandwidthHz: e.Bandwidth, RRadOhm: e.RRad,
-		RLossOhm: e.RLoss, Efficiency: e.Efficiency, EfficiencyDB: e.EfficiencyDB(),
-		CapVoltageV: e.VoltageRMS, CapVoltagePk: e.VoltagePeak, CurrentA: e.Current,
-		InRange: inRange, SmallLoop: small,
+// rowOf judges one frequency: covered, with the model's figures, when the loop is small enough
+// for the model there and the capacitor reaches the capacitance it needs; otherwise not
+// covered, with the reason and only the figures that still mean something.
+func rowOf(bandName string, e loop.Electrical, m loop.Model, cmin, cmax float64) designRow {
+	r := designRow{Band: bandName, FrequencyHz: e.Frequency, InductanceH: e.Inductance, e: e}
+	r.CircumferenceWL = math.Pi * m.Geometry.Diameter * e.Frequency / loop.LightSpeed
+	r.SmallLoop = r.CircumferenceWL < smallLoopWavelengths
+	c := e.Capacitance
+	figures := []float64{e.Capacitance, e.QUnloaded, e.QLoaded, e.Bandwidth, e.RRad, e.RLoss, e.Efficiency,
+		e.EfficiencyDB(), e.VoltageRMS, e.VoltagePeak, e.Current}
+	switch {
+	case !(r.CircumferenceWL <= modelLimitWavelengths):
+		r.Reason = fmt.Sprintf("the loop is too large for the small-loop model here (turn circumference %.2f λ, above λ/4)", r.CircumferenceWL)
+	case !allFinite(figures):
+		r.Reason = "the model gives no finite figures here"
+	case c < 0:
+		r.Reason = fmt.Sprintf("needs %s pF in all, less than the %s pF stray alone", fmtPF((c+m.Stray)*1e12), fmtPF(m.Stray*1e12))
+	case c < cmin:
+		r.CapacitanceF = &c
+		r.Reason = fmt.Sprintf("needs %s pF, below the capacitor's %s pF minimum", fmtPF(c*1e12), fmtPF(cmin*1e12))
+	case c > cmax:
+		r.CapacitanceF = &c
+		r.Reason = fmt.Sprintf("needs %s pF, above the capacitor's %s pF maximum", fmtPF(c*1e12), fmtPF(cmax*1e12))
+	default:
+		r.Covered, r.InRange = true, true
+		f := append([]float64(nil), figures...) // the row's own copies
+		r.CapacitanceF, r.QUnloaded, r.QLoaded, r.BandwidthHz, r.RRadOhm, r.RLossOhm = &f[0], &f[1], &f[2], &f[3], &f[4], &f[5]
+		r.Efficiency, r.EfficiencyDB, r.CapVoltageV, r.CapVoltagePk, r.CurrentA = &f[6], &f[7], &f[8], &f[9], &f[10]
 	}
+	return r
 }
 
-func printDesign(w io.Writer, s sim.Spec, m loop.Model, cmin, cmax float64, rows []designRow, bands []band.Band, power, temp float64) {
+func allFinite(xs []float64) bool {
+	for _, x := range xs {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return false
+		}
+	}
+	return true
+}
+
+// fmtPF writes a capacitance in pF to a tenth, with thousands grouped from 1,000 pF: 4.2, 10,
+// 366.9, 2,300.
+func fmtPF(pf float64) string {
+	if math.Abs(pf) < 1000 {
+		return strconv.FormatFloat(math.Round(pf*10)/10, 'f', -1, 64)
+	}
+	s := strconv.FormatFloat(math.Abs(math.Round(pf)), 'f', 0, 64)
+	var b strings.Builder
+	if pf < 0 {
+		b.WriteByte('-')
+	}
+	for i, d := range s {
+		if i > 0 && (len(s)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteRune(d)
+	}
+	return b.String()
+}
+
+func printDesign(w io.Writer, m loop.Model, cmin, cmax float64, rows []designRow, bands []band.Band, power, temp float64) {
 	g := m.Geometry
 	fmt.Fprintf(w, "Loop: %d turn(s) of %.3f m diameter, %.1f mm conductor", g.Turns, g.Diameter, g.ConductorDiameter*1000)
 	if g.Turns > 1 {
@@ -225,42 +313,70 @@ func printDesign(w io.Writer, s sim.Spec, m loop.Model, cmin, cmax float64, rows
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintln(tw, "band\tMHz\tC pF\tQu\tQl\tBW Hz\tRrad mΩ\tRloss mΩ\teff %\teff dB\tVcap rms\tVcap pk\tI A\t")
 	for _, r := range rows {
-		note := ""
-		if !r.InRange {
-			note = "capacitor out of range"
+		if !r.Covered {
+			// No figures where the model has no answer; the needed capacitance where it has one.
+			c := "–"
+			if r.CapacitanceF != nil {
+				c = fmt.Sprintf("%.1f", *r.CapacitanceF*1e12)
+			}
+			fmt.Fprintf(tw, "%s\t%.4f\t%s\t%s not covered: %s\n", r.Band, r.FrequencyHz/1e6, c, strings.Repeat("–\t", 10), r.Reason)
+			continue
 		}
+		e, note := r.e, ""
 		if !r.SmallLoop {
-			note = strings.TrimPrefix(note+"; loop not small against λ", "; ")
+			note = fmt.Sprintf("loop not small against λ (turn circumference %.2f λ): figures approximate", r.CircumferenceWL)
 		}
 		fmt.Fprintf(tw, "%s\t%.4f\t%.1f\t%.0f\t%.0f\t%.0f\t%.2f\t%.1f\t%.1f\t%.1f\t%.0f\t%.0f\t%.1f\t %s\n",
-			r.Band, r.FrequencyHz/1e6, r.CapacitanceF*1e12, r.QUnloaded, r.QLoaded, r.BandwidthHz,
-			r.RRadOhm*1e3, r.RLossOhm*1e3, r.Efficiency*100, r.EfficiencyDB, r.CapVoltageV, r.CapVoltagePk, r.CurrentA, note)
+			r.Band, r.FrequencyHz/1e6, e.Capacitance*1e12, e.QUnloaded, e.QLoaded, e.Bandwidth,
+			e.RRad*1e3, e.RLoss*1e3, e.Efficiency*100, e.EfficiencyDB(), e.VoltageRMS, e.VoltagePeak, e.Current, note)
 	}
 	tw.Flush()
 	if len(bands) > 0 {
 		fmt.Fprintln(w)
 	}
 	for _, b := range bands {
-		var need []float64
-		for _, r := range rows {
-			if r.Band == b.Name {
-				need = append(need, r.CapacitanceF)
-			}
-		}
-		lo, hi := math.Inf(1), math.Inf(-1)
-		for _, c := range need {
-			lo, hi = math.Min(lo, c), math.Max(hi, c)
-		}
-		switch {
-		case lo >= cmin && hi <= cmax:
-			fmt.Fprintf(w, "%-5s covered: needs %.1f–%.1f pF\n", b.Name, lo*1e12, hi*1e12)
-		case hi < cmin:
-			fmt.Fprintf(w, "%-5s NOT covered: needs %.1f–%.1f pF, below the capacitor's %.1f pF minimum\n", b.Name, lo*1e12, hi*1e12, cmin*1e12)
-		case lo > cmax:
-			fmt.Fprintf(w, "%-5s NOT covered: needs %.1f–%.1f pF, above the capacitor's %.0f pF maximum\n", b.Name, lo*1e12, hi*1e12, cmax*1e12)
-		default:
-			fmt.Fprintf(w, "%-5s partly covered: needs %.1f–%.1f pF, the capacitor spans %.1f–%.0f pF\n", b.Name, lo*1e12, hi*1e12, cmin*1e12, cmax*1e12)
-		}
+		fmt.Fprintf(w, "%-5s %s\n", b.Name, coverage(b, rows, cmin, cmax, m.Stray))
 	}
 	fmt.Fprintln(w, "\nVcap is the circuit-law capacitor voltage, V = X_L·√(P/R); forms using the loaded Q give √2 less.")
+}
+
+// coverage says whether the capacitor covers band b, from the rows of the band.
+func coverage(b band.Band, rows []designRow, cmin, cmax, stray float64) string {
+	lo, hi := math.Inf(1), math.Inf(-1)
+	n, large := 0, []designRow(nil)
+	for _, r := range rows {
+		if r.Band != b.Name {
+			continue
+		}
+		n++
+		if !(r.CircumferenceWL <= modelLimitWavelengths) {
+			large = append(large, r)
+			continue
+		}
+		lo, hi = math.Min(lo, r.e.Capacitance), math.Max(hi, r.e.Capacitance)
+	}
+	switch {
+	case len(large) == n:
+		return fmt.Sprintf("NOT covered: the loop is too large for the small-loop model on this band (turn circumference up to %.2f λ, above λ/4)",
+			large[len(large)-1].CircumferenceWL)
+	case len(large) > 0:
+		return fmt.Sprintf("partly covered: the loop is too large for the small-loop model from %.4f MHz (turn circumference %.2f λ, above λ/4)",
+			large[0].FrequencyHz/1e6, large[0].CircumferenceWL)
+	}
+	// Below the stray alone the tuning capacitance "needed" is negative: say the totals instead.
+	need := fmt.Sprintf("needs %.1f–%.1f pF", lo*1e12, hi*1e12)
+	if lo < 0 {
+		need = fmt.Sprintf("needs %.1f–%.1f pF in all, stray included", (lo+stray)*1e12, (hi+stray)*1e12)
+	}
+	switch {
+	case lo >= cmin && hi <= cmax:
+		return fmt.Sprintf("covered: %s", need)
+	case hi < cmin && lo < 0:
+		return fmt.Sprintf("NOT covered: %s, below the capacitor's %.1f pF minimum plus %.0f pF stray", need, cmin*1e12, stray*1e12)
+	case hi < cmin:
+		return fmt.Sprintf("NOT covered: %s, below the capacitor's %.1f pF minimum", need, cmin*1e12)
+	case lo > cmax:
+		return fmt.Sprintf("NOT covered: %s, above the capacitor's %.0f pF maximum", need, cmax*1e12)
+	}
+	return fmt.Sprintf("partly covered: %s, the capacitor spans %.1f–%.0f pF", need, cmin*1e12, cmax*1e12)
 }

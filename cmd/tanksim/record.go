@@ -3,23 +3,38 @@ package main
 import (
 	"bufio"
 	"context"
+	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"os"
 
 	"github.com/tankd/tankd/controller/record"
 	"github.com/tankd/tankd/controller/tune"
+	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/bench"
+)
+
+// Ranges of the recording and replay flags. A sweep of a hundred half-widths either side, or a
+// hundred readings in one, is far past any use; a drive's whole travel is some hundred thousand
+// steps, so a prediction further off than that is off the capacitor (the demo station's
+// 160,000 steps a capacitor turn).
+var (
+	sweepSpanRange = sim.Range{Min: 0, MinOpen: true, Max: 100, Unit: "half-widths"}
+	densityRange   = sim.Range{Min: 0, MinOpen: true, Max: 100, Unit: "readings"}
+	offsetRange    = sim.Range{Min: -100000, Max: 100000, Unit: "steps"}
+	sigmaRange     = sim.Range{Min: 0, Max: 100000, Unit: "steps"}
 )
 
 func runRecord(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("record", stderr)
-	geo := addGeometryFlags(fs)
-	freq := fs.Float64("freq", 3.75e6, "frequency, Hz")
-	seed := fs.Uint64("seed", 1, "simulator seed")
+	nf := newNumFlags(fs)
+	geo := addGeometryFlags(fs, nf)
+	freq := nf.Float("freq", 3.75e6, sim.FrequencyRange(), "frequency")
+	seed := nf.Seed("seed", 1, "simulator `seed`")
 	out := fs.String("o", "", "recording to write (default standard output)")
-	span := fs.Float64("span", 6, "how far either side of the dip to sweep, in half-widths")
-	density := fs.Float64("density", 8, "readings per half-width")
+	span := nf.Float("span", 6, sweepSpanRange, "how far either side of the dip to sweep")
+	density := nf.Float("density", 8, densityRange, "readings per half-width")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, `usage: tanksim record [flags]
 
@@ -30,11 +45,8 @@ tests can play back.
 flags:`)
 		fs.PrintDefaults()
 	}
-	if err := parseFlags(fs, args); err != nil {
+	if err := nf.parse(args); err != nil {
 		return err
-	}
-	if !(*span > 0 && *span <= 100) || !(*density > 0 && *density <= 100) {
-		return usageError{fmt.Errorf("-span %g, -density %g: want both in (0, 100]", *span, *density)}
 	}
 	s, err := geo.spec(fs)
 	if err != nil {
@@ -91,8 +103,9 @@ flags:`)
 
 func runReplay(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("replay", stderr)
-	offset := fs.Float64("offset", 5, "how far (steps) the memory map's prediction is off the recorded dip")
-	sigma := fs.Float64("sigma", 3, "the prediction's one-sigma uncertainty, steps")
+	nf := newNumFlags(fs)
+	offset := nf.Float("offset", 5, offsetRange, "how far the memory map's prediction is off the recorded dip")
+	sigma := nf.Float("sigma", 3, sigmaRange, "the prediction's one-sigma uncertainty")
 	plotFile := fs.String("plot", "", "draw SWR against position to this .svg or .png file")
 	verbose := fs.Bool("v", false, "print every reading")
 	fs.Usage = func() {
@@ -105,7 +118,13 @@ flags:`)
 		fs.PrintDefaults()
 	}
 	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return err
+		}
 		return usageError{err}
+	}
+	if err := nf.check(); err != nil {
+		return err
 	}
 	if fs.NArg() != 1 {
 		return usageError{fmt.Errorf("want one recording file, have %d arguments", fs.NArg())}

@@ -17,16 +17,22 @@ import (
 	"github.com/tankd/tankd/controller/record"
 	"github.com/tankd/tankd/controller/sense"
 	"github.com/tankd/tankd/controller/tune"
+	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/bench"
 )
 
+// historyRange bounds the warm-up: two hundred tunes teach a map more than a season of use
+// (from memory), and take a while even on the virtual clock.
+var historyRange = sim.Range{Min: 1, Max: 200}
+
 func runTune(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("tune", stderr)
-	geo := addGeometryFlags(fs)
-	freq := fs.Float64("freq", 3.75e6, "frequency to tune, Hz")
+	nf := newNumFlags(fs)
+	geo := addGeometryFlags(fs, nf)
+	freq := nf.Float("freq", 3.75e6, sim.FrequencyRange(), "frequency to tune")
 	mapState := fs.String("map", "cold", "cold: empty memory map; warm: calibrate and learn from -history earlier tunes first")
-	history := fs.Int("history", 8, "warm: how many earlier tunes teach the map (spread over the bands the loop covers)")
-	seed := fs.Uint64("seed", 1, "seed for the simulator's noise and the warm history")
+	history := nf.Int("history", 8, historyRange, "warm: how many earlier `tunes` teach the map (spread over the bands the loop covers)")
+	seed := nf.Seed("seed", 1, "`seed` for the simulator's noise and the warm history")
 	plotFile := fs.String("plot", "", "draw SWR against position to this .svg or .png file")
 	verbose := fs.Bool("v", false, "print every reading")
 	realTime := fs.Bool("realtime", false, "run on the wall clock: the tune takes as long as on real hardware")
@@ -39,14 +45,11 @@ stage as it happens: prediction, pre-position, coarse scan, fit, final approach,
 flags:`)
 		fs.PrintDefaults()
 	}
-	if err := parseFlags(fs, args); err != nil {
+	if err := nf.parse(args); err != nil {
 		return err
 	}
 	if *mapState != "cold" && *mapState != "warm" {
 		return usageError{fmt.Errorf("-map %q: want cold or warm", *mapState)}
-	}
-	if *history < 1 || *history > 200 {
-		return usageError{fmt.Errorf("-history %d: want 1 to 200", *history)}
 	}
 	s, err := geo.spec(fs)
 	if err != nil {

@@ -68,13 +68,14 @@ type Capacitor struct {
 
 const gridSize = 2049
 
-// New validates opts and prepares the law.
+// New validates opts, reporting every problem at once, and prepares the law. Every comparison
+// is written so that NaN and the infinities fail it.
 func New(opts Options) (*Capacitor, error) {
 	var errs []error
 	if !(opts.Span > 0) || opts.Span > 100 {
 		errs = append(errs, fmt.Errorf("capacitor span %g turns: want more than 0 and at most 100", opts.Span))
 	}
-	if math.Abs(opts.TempCoeff) > 1e-3 {
+	if !(math.Abs(opts.TempCoeff) <= 1e-3) {
 		errs = append(errs, fmt.Errorf("capacitor temperature coefficient %g /K: want within ±1000 ppm/K", opts.TempCoeff))
 	}
 	if len(opts.Table) == 0 {
@@ -103,15 +104,19 @@ func checkTable(tab []Point) error {
 	if tab[0].Fraction != 0 || tab[len(tab)-1].Fraction != 1 {
 		return fmt.Errorf("capacitor table: fractions must run from 0 to 1, have %g to %g", tab[0].Fraction, tab[len(tab)-1].Fraction)
 	}
+	var errs []error
 	for i, p := range tab {
-		if !(p.Capacitance > 0) || p.Capacitance > 1e-8 {
-			return fmt.Errorf("capacitor table point %d: capacitance %g F: want 0 to 10 nF", i+1, p.Capacitance)
+		if !(p.Fraction >= 0 && p.Fraction <= 1) {
+			errs = append(errs, fmt.Errorf("capacitor table point %d: fraction %g: want 0 to 1", i+1, p.Fraction))
 		}
-		if i > 0 && (p.Fraction <= tab[i-1].Fraction || p.Capacitance <= tab[i-1].Capacitance) {
-			return fmt.Errorf("capacitor table point %d: fractions and capacitances must both rise", i+1)
+		if !(p.Capacitance > 0 && p.Capacitance <= 1e-8) {
+			errs = append(errs, fmt.Errorf("capacitor table point %d: capacitance %g F: want more than 0 and at most 10 nF", i+1, p.Capacitance))
+		}
+		if i > 0 && !(p.Fraction > tab[i-1].Fraction && p.Capacitance > tab[i-1].Capacitance) {
+			errs = append(errs, fmt.Errorf("capacitor table point %d: fractions and capacitances must both rise", i+1))
 		}
 	}
-	return nil
+	return errors.Join(errs...)
 }
 
 func interpolate(tab []Point, x float64) float64 {

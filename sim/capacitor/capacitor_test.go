@@ -2,6 +2,7 @@ package capacitor
 
 import (
 	"math"
+	"strings"
 	"testing"
 )
 
@@ -81,6 +82,18 @@ func TestValidation(t *testing.T) {
 	} {
 		if _, err := New(o); err == nil {
 			t.Errorf("accepted %+v", o)
+		}
+	}
+	// NaN fails every comparison; each of these slipped past checks written as "x > hi".
+	nan := math.NaN()
+	for _, o := range []Options{
+		{Min: 10 * pF, Max: 500 * pF, Span: 0.5, TempCoeff: nan},
+		{Min: 10 * pF, Max: 500 * pF, Span: math.Inf(1)},
+		{Table: []Point{{0, 10 * pF}, {nan, 100 * pF}, {1, 500 * pF}}, Span: 0.5},
+		{Table: []Point{{0, 10 * pF}, {0.5, math.Inf(1)}, {1, 500 * pF}}, Span: 0.5},
+	} {
+		if _, err := New(o); err == nil || !strings.Contains(err.Error(), "want") {
+			t.Errorf("%+v: %v", o, err)
 		}
 	}
 	if _, err := ParseTravel("sideways"); err == nil {

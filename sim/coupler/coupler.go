@@ -48,35 +48,61 @@ type Options struct {
 	Seed          uint64
 }
 
-// Validate reports every problem with o at once.
+// Validate reports every problem with o at once. Every comparison is written so that NaN and
+// the infinities fail it.
 func (o Options) Validate() error {
 	var errs []error
-	if o.CouplingDB < 0 || o.CouplingDB > 60 {
+	if !(o.CouplingDB >= 0 && o.CouplingDB <= 60) {
 		errs = append(errs, fmt.Errorf("coupling %g dB: want 0 to 60", o.CouplingDB))
 	}
-	if o.DirectivityDB < 6 || o.DirectivityDB > 80 {
+	if !(o.DirectivityDB >= 6 && o.DirectivityDB <= 80) {
 		errs = append(errs, fmt.Errorf("directivity %g dB: want 6 to 80", o.DirectivityDB))
 	}
-	if err := o.Forward.Validate(); err != nil {
-		errs = append(errs, fmt.Errorf("forward %w", err))
+	if !(math.Abs(o.LeakPhase) <= 2*math.Pi) {
+		errs = append(errs, fmt.Errorf("leak phase %g rad: want within ±2π", o.LeakPhase))
 	}
-	if err := o.Reflected.Validate(); err != nil {
-		errs = append(errs, fmt.Errorf("reflected %w", err))
+	for _, d := range []struct {
+		name string
+		det  sense.Detector
+	}{{"forward", o.Forward}, {"reflected", o.Reflected}} {
+		if err := d.det.Validate(); err != nil {
+			errs = append(errs, fmt.Errorf("%s %w", d.name, err))
+		}
+		errs = append(errs, finiteDetector(d.name, d.det)...)
 	}
 	a := o.ADC
 	if a.Bits < 8 || a.Bits > 24 {
 		errs = append(errs, fmt.Errorf("adc bits %d: want 8 to 24", a.Bits))
 	}
-	if !(a.FullScale > 0) || a.FullScale > 10 {
+	if !(a.FullScale > 0 && a.FullScale <= 10) {
 		errs = append(errs, fmt.Errorf("adc full scale %g V: want more than 0 and at most 10", a.FullScale))
 	}
-	if a.Noise < 0 || a.Noise > 0.1 {
+	if !(a.Noise >= 0 && a.Noise <= 0.1) {
 		errs = append(errs, fmt.Errorf("adc noise %g V: want 0 to 0.1", a.Noise))
 	}
 	if a.Conversion <= 0 || a.Conversion > time.Second {
 		errs = append(errs, fmt.Errorf("adc conversion time %v: want more than 0 and at most 1s", a.Conversion))
 	}
 	return errors.Join(errs...)
+}
+
+// finiteDetector reports the detector figures that are NaN or infinite, which the detector's
+// own validation does not catch everywhere (an infinite ceiling is "above the floor"). Every
+// figure is checked whatever the law: a figure the law does not use must still be a number.
+func finiteDetector(name string, d sense.Detector) []error {
+	var errs []error
+	for _, f := range []struct {
+		what, unit string
+		v          float64
+	}{
+		{"slope", "V/dB", d.Slope}, {"intercept", "dBm", d.Intercept}, {"floor", "dBm", d.Floor},
+		{"ceiling", "dBm", d.Ceiling}, {"sensitivity", "V/W", d.Sensitivity}, {"maximum", "V", d.MaxVolts},
+	} {
+		if math.IsNaN(f.v) || math.IsInf(f.v, 0) {
+			errs = append(errs, fmt.Errorf("%s detector %s %g %s: want a finite number", name, f.what, f.v, f.unit))
+		}
+	}
+	return errs
 }
 
 // Coupler is the simulated coupler and ADC.

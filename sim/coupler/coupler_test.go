@@ -3,6 +3,7 @@ package coupler
 import (
 	"context"
 	"math"
+	"strings"
 	"testing"
 	"time"
 
@@ -115,5 +116,34 @@ func BenchmarkRead(b *testing.B) {
 	ctx := context.Background()
 	for b.Loop() {
 		_, _ = c.Read(ctx)
+	}
+}
+
+// NaN fails every comparison, so a check written as "x < lo || x > hi" lets it through.
+func TestValidateRejectsNonFinite(t *testing.T) {
+	if err := opts().Validate(); err != nil {
+		t.Fatalf("the test options fail: %v", err)
+	}
+	for _, bad := range []float64{math.NaN(), math.Inf(1), math.Inf(-1)} {
+		for _, c := range []struct {
+			what string
+			set  func(o *Options)
+		}{
+			{"coupling", func(o *Options) { o.CouplingDB = bad }},
+			{"directivity", func(o *Options) { o.DirectivityDB = bad }},
+			{"leak phase", func(o *Options) { o.LeakPhase = bad }},
+			{"adc full scale", func(o *Options) { o.ADC.FullScale = bad }},
+			{"adc noise", func(o *Options) { o.ADC.Noise = bad }},
+			{"forward detector intercept", func(o *Options) { o.Forward.Intercept = bad }},
+			{"reflected detector ceiling", func(o *Options) { o.Reflected.Ceiling = bad }},
+			{"forward detector sensitivity", func(o *Options) { o.Forward.Sensitivity = bad }},
+		} {
+			o := opts()
+			c.set(&o)
+			err := o.Validate()
+			if err == nil || !strings.Contains(err.Error(), c.what+" ") || !strings.Contains(err.Error(), "want") {
+				t.Errorf("%s = %g: %v", c.what, bad, err)
+			}
+		}
 	}
 }

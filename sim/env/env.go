@@ -8,6 +8,7 @@
 package env
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -23,12 +24,24 @@ type Options struct {
 	Seed     uint64
 }
 
-// Validate reports a problem with o.
+// Validate reports every problem with o at once. Every comparison is written so that NaN and
+// the infinities fail it.
 func (o Options) Validate() error {
-	if o.Mean < -50 || o.Mean > 60 || o.Swing < 0 || o.Swing > 30 || o.Wander < 0 || o.Wander > 20 || o.PeakHour < 0 || o.PeakHour > 24 {
-		return fmt.Errorf("environment: mean %g °C (−50..60), swing %g K (0..30), wander %g K (0..20), peak hour %g (0..24) out of range", o.Mean, o.Swing, o.Wander, o.PeakHour)
+	var errs []error
+	// −50 to 60 °C spans the coldest and hottest places loops are put up (from memory).
+	if !(o.Mean >= -50 && o.Mean <= 60) {
+		errs = append(errs, fmt.Errorf("environment: mean %g °C: want −50 to 60", o.Mean))
 	}
-	return nil
+	if !(o.Swing >= 0 && o.Swing <= 30) {
+		errs = append(errs, fmt.Errorf("environment: swing %g K: want 0 to 30", o.Swing))
+	}
+	if !(o.Wander >= 0 && o.Wander <= 20) {
+		errs = append(errs, fmt.Errorf("environment: wander %g K: want 0 to 20", o.Wander))
+	}
+	if !(o.PeakHour >= 0 && o.PeakHour <= 24) {
+		errs = append(errs, fmt.Errorf("environment: peak hour %g: want 0 to 24", o.PeakHour))
+	}
+	return errors.Join(errs...)
 }
 
 // Weather gives the temperature at any time.

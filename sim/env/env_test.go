@@ -2,6 +2,7 @@ package env
 
 import (
 	"math"
+	"strings"
 	"testing"
 	"time"
 )
@@ -42,5 +43,29 @@ func TestWanderIsSeededAndBounded(t *testing.T) {
 	}
 	if _, err := New(Options{Mean: 200}); err == nil {
 		t.Error("200 °C accepted")
+	}
+}
+
+func TestValidateRejectsNonFinite(t *testing.T) {
+	for _, bad := range []float64{math.NaN(), math.Inf(1), math.Inf(-1)} {
+		for _, c := range []struct {
+			what string
+			o    Options
+		}{
+			{"mean", Options{Mean: bad}},
+			{"swing", Options{Swing: bad}},
+			{"wander", Options{Wander: bad}},
+			{"peak hour", Options{PeakHour: bad}},
+		} {
+			err := c.o.Validate()
+			if err == nil || !strings.Contains(err.Error(), c.what+" ") || !strings.Contains(err.Error(), "want") {
+				t.Errorf("%s = %g: %v", c.what, bad, err)
+			}
+		}
+	}
+	// every problem at once
+	err := Options{Mean: math.NaN(), Swing: -1}.Validate()
+	if err == nil || !strings.Contains(err.Error(), "mean NaN") || !strings.Contains(err.Error(), "swing -1") {
+		t.Errorf("not every problem reported: %v", err)
 	}
 }

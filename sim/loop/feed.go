@@ -1,6 +1,7 @@
 package loop
 
 import (
+	"errors"
 	"fmt"
 	"math"
 )
@@ -15,15 +16,17 @@ type Feed struct {
 	OctaveSWR       float64 // best SWR one octave from DesignFrequency, ≥ 1
 }
 
-// Validate reports a problem with the feed.
+// Validate reports every problem with the feed at once. Every comparison is written so that
+// NaN and the infinities fail it.
 func (fd Feed) Validate() error {
-	if !(fd.DesignFrequency > 0) {
-		return fmt.Errorf("feed design frequency %g Hz: want more than 0", fd.DesignFrequency)
+	var errs []error
+	if !(fd.DesignFrequency > 0) || math.IsInf(fd.DesignFrequency, 1) {
+		errs = append(errs, fmt.Errorf("feed design frequency %g Hz: want more than 0 and finite", fd.DesignFrequency))
 	}
-	if fd.OctaveSWR < 1 || fd.OctaveSWR > 10 {
-		return fmt.Errorf("feed octave SWR %g: want 1 to 10", fd.OctaveSWR)
+	if !(fd.OctaveSWR >= 1 && fd.OctaveSWR <= 10) {
+		errs = append(errs, fmt.Errorf("feed octave SWR %g: want 1 to 10", fd.OctaveSWR))
 	}
-	return nil
+	return errors.Join(errs...)
 }
 
 // Ratio is r(f): the resonant input resistance over the line impedance.

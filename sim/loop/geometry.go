@@ -18,7 +18,7 @@ const ReferenceTemperature = 20.0
 
 // Geometry is the shape of the loop: Turns coaxial circular turns of conductor.
 type Geometry struct {
-	Turns             int     // 1 to 4
+	Turns             int     // 1 to 8
 	Diameter          float64 // turn diameter to the conductor's centre line, m
 	ConductorDiameter float64 // conductor outside diameter (tube or pipe), m
 	Spacing           float64 // centre-to-centre distance between adjacent turns, m (unused for one turn)
@@ -39,25 +39,27 @@ var Copper = Conductor{Resistivity: 1.678e-8, TempCoeff: 0.0039, Expansion: 17e-
 // ErrGeometry is wrapped by every geometry validation error.
 var ErrGeometry = errors.New("loop geometry")
 
-// Validate reports every problem with g at once.
+// Validate reports every problem with g at once. Every comparison is written so that NaN and
+// the infinities fail it.
 func (g Geometry) Validate() error {
 	var errs []error
 	bad := func(format string, args ...any) {
 		errs = append(errs, fmt.Errorf("%w: "+format, append([]any{ErrGeometry}, args...)...))
 	}
-	if g.Turns < 1 || g.Turns > 4 {
-		bad("turns %d: want 1 to 4", g.Turns)
+	// One to four turns is usual; a few small loops have more (common practice).
+	if g.Turns < 1 || g.Turns > 8 {
+		bad("turns %d: want 1 to 8", g.Turns)
 	}
-	if !(g.Diameter > 0) || g.Diameter > 20 {
+	if !(g.Diameter > 0 && g.Diameter <= 20) {
 		bad("diameter %g m: want more than 0 and at most 20 m", g.Diameter)
 	}
-	if !(g.ConductorDiameter > 0) {
-		bad("conductor diameter %g m: want more than 0", g.ConductorDiameter)
+	if !(g.ConductorDiameter > 0) || math.IsInf(g.ConductorDiameter, 1) {
+		bad("conductor diameter %g m: want more than 0 and at most a tenth of the turn diameter", g.ConductorDiameter)
 	} else if g.Diameter > 0 && g.ConductorDiameter > g.Diameter/10 {
 		bad("conductor diameter %g m: want at most a tenth of the turn diameter (%g m) for the thin-wire formulas", g.ConductorDiameter, g.Diameter/10)
 	}
-	if g.Turns > 1 && !(g.Spacing > g.ConductorDiameter) {
-		bad("spacing %g m: want more than the conductor diameter (%g m) so that turns do not touch", g.Spacing, g.ConductorDiameter)
+	if g.Turns > 1 && !(g.Spacing > g.ConductorDiameter && g.Spacing <= 20) {
+		bad("spacing %g m: want more than the conductor diameter (%g m) so that turns do not touch, and at most 20 m", g.Spacing, g.ConductorDiameter)
 	}
 	return errors.Join(errs...)
 }
@@ -65,13 +67,13 @@ func (g Geometry) Validate() error {
 // Validate reports every problem with c at once.
 func (c Conductor) Validate() error {
 	var errs []error
-	if !(c.Resistivity > 0) || c.Resistivity > 1e-5 {
+	if !(c.Resistivity > 0 && c.Resistivity <= 1e-5) {
 		errs = append(errs, fmt.Errorf("conductor resistivity %g Ω·m: want more than 0 and at most 1e-5", c.Resistivity))
 	}
-	if c.TempCoeff < 0 || c.TempCoeff > 0.02 {
+	if !(c.TempCoeff >= 0 && c.TempCoeff <= 0.02) {
 		errs = append(errs, fmt.Errorf("conductor temperature coefficient %g /K: want 0 to 0.02", c.TempCoeff))
 	}
-	if c.Expansion < 0 || c.Expansion > 1e-4 {
+	if !(c.Expansion >= 0 && c.Expansion <= 1e-4) {
 		errs = append(errs, fmt.Errorf("conductor expansion %g /K: want 0 to 1e-4", c.Expansion))
 	}
 	return errors.Join(errs...)

@@ -243,14 +243,52 @@ func TestTemperatureMovesResonance(t *testing.T) {
 }
 
 func TestValidateReportsEverything(t *testing.T) {
-	m := Model{Geometry: Geometry{Turns: 7, Diameter: -1, ConductorDiameter: 0, Spacing: 0}, Conductor: Conductor{}}
+	m := Model{Geometry: Geometry{Turns: 9, Diameter: -1, ConductorDiameter: 0, Spacing: 0}, Conductor: Conductor{}}
 	err := m.Validate()
 	if err == nil {
 		t.Fatal("invalid model accepted")
 	}
-	for _, key := range []string{"turns 7", "diameter -1", "conductor diameter 0", "resistivity 0"} {
+	for _, key := range []string{"turns 9", "diameter -1", "conductor diameter 0", "resistivity 0"} {
 		if !contains(err.Error(), key) {
 			t.Errorf("error %q does not mention %q", err, key)
+		}
+	}
+}
+
+// NaN fails every comparison, so a check written as "x < lo || x > hi" lets it through; every
+// figure of the model must be refused when it is NaN or infinite.
+func TestValidateRejectsNonFinite(t *testing.T) {
+	for _, bad := range []float64{math.NaN(), math.Inf(1), math.Inf(-1)} {
+		for _, c := range []struct {
+			what string
+			set  func(m *Model)
+		}{
+			{"diameter", func(m *Model) { m.Geometry.Diameter = bad }},
+			{"conductor diameter", func(m *Model) { m.Geometry.ConductorDiameter = bad }},
+			{"spacing", func(m *Model) { m.Geometry.Spacing = bad }},
+			{"resistivity", func(m *Model) { m.Conductor.Resistivity = bad }},
+			{"temperature coefficient", func(m *Model) { m.Conductor.TempCoeff = bad }},
+			{"expansion", func(m *Model) { m.Conductor.Expansion = bad }},
+			{"extra loss", func(m *Model) { m.Losses.ExtraOhm = bad }},
+			{"capacitor Q", func(m *Model) { m.Losses.CapacitorQ = bad }},
+			{"ground loss", func(m *Model) { m.Losses.GroundOhm = bad }},
+			{"proximity factor", func(m *Model) { m.Losses.Proximity = bad }},
+			{"stray capacitance", func(m *Model) { m.Stray = bad }},
+		} {
+			m := commonLoop()
+			if err := m.Validate(); err != nil {
+				t.Fatalf("the common loop fails: %v", err)
+			}
+			c.set(&m)
+			err := m.Validate()
+			if err == nil || !contains(err.Error(), c.what+" ") || !contains(err.Error(), "want") {
+				t.Errorf("%s = %g: %v", c.what, bad, err)
+			}
+		}
+		for _, fd := range []Feed{{DesignFrequency: bad, OctaveSWR: 1.4}, {DesignFrequency: 3e6, OctaveSWR: bad}} {
+			if err := fd.Validate(); err == nil || !contains(err.Error(), "want") {
+				t.Errorf("feed %+v: %v", fd, err)
+			}
 		}
 	}
 }

@@ -19,19 +19,22 @@ type Losses struct {
 	Proximity float64
 }
 
-// Validate reports every problem with l at once.
+// Validate reports every problem with l at once. Every comparison is written so that NaN and
+// the infinities fail it.
 func (l Losses) Validate() error {
 	var errs []error
-	if l.ExtraOhm < 0 || l.ExtraOhm > 100 {
+	if !(l.ExtraOhm >= 0 && l.ExtraOhm <= 100) {
 		errs = append(errs, fmt.Errorf("extra loss %g Ω: want 0 to 100", l.ExtraOhm))
 	}
-	if l.CapacitorQ < 0 {
-		errs = append(errs, fmt.Errorf("capacitor Q %g: want 0 (lossless) or more", l.CapacitorQ))
+	// The best vacuum capacitors reach a Q of some tens of thousands (from memory); ten million
+	// is a generous ceiling that still keeps the arithmetic finite.
+	if !(l.CapacitorQ == 0 || l.CapacitorQ >= 1 && l.CapacitorQ <= 1e7) {
+		errs = append(errs, fmt.Errorf("capacitor Q %g: want 0 (lossless) or 1 to 1e7", l.CapacitorQ))
 	}
-	if l.GroundOhm < 0 || l.GroundOhm > 100 {
+	if !(l.GroundOhm >= 0 && l.GroundOhm <= 100) {
 		errs = append(errs, fmt.Errorf("ground loss %g Ω: want 0 to 100", l.GroundOhm))
 	}
-	if l.Proximity != 0 && (l.Proximity < 1 || l.Proximity > 10) {
+	if !(l.Proximity == 0 || l.Proximity >= 1 && l.Proximity <= 10) {
 		errs = append(errs, fmt.Errorf("proximity factor %g: want 0 (estimate) or 1 to 10", l.Proximity))
 	}
 	return errors.Join(errs...)
@@ -50,7 +53,7 @@ type Model struct {
 // Validate reports every problem with m at once.
 func (m Model) Validate() error {
 	errs := []error{m.Geometry.Validate(), m.Conductor.Validate(), m.Losses.Validate()}
-	if m.Stray < 0 || m.Stray > 1e-9 {
+	if !(m.Stray >= 0 && m.Stray <= 1e-9) {
 		errs = append(errs, fmt.Errorf("stray capacitance %g F: want 0 to 1 nF", m.Stray))
 	}
 	return errors.Join(errs...)
