@@ -22,17 +22,25 @@
 //   - Durability on success. The new data is synced before the rename and the directory after
 //     it: once WriteFile returns nil, the new file (and the previous copy) are on the device.
 //   - A previous good copy. Before replacing a file whose checksum verifies, WriteFile keeps it
-//     as path+PrevSuffix: a hard link, so that its data is never written again, or a copy made
-//     the same atomic way where the filesystem has no hard links. A corrupt current file is not
-//     kept, so it never displaces a good previous copy.
+//     as path+PrevSuffix: a hard link, so that its data is never written again, or a copy where
+//     the filesystem has no hard links, made under a temporary name and renamed over the older
+//     previous copy. Once a previous copy has existed there is one at every moment, whatever
+//     instant the process is killed at. A corrupt current file is not kept, so it never
+//     displaces a good previous copy.
 //   - Detection. ReadFile verifies the checksum: a torn, truncated, extended or edited file is
 //     corrupt, never returned as data.
 //   - Fallback. If the main copy is missing, unreadable or corrupt, ReadFile returns the
 //     previous copy's body with an error wrapping ErrUsedPrevious. Decode also falls back when
 //     the caller's parser rejects the main body as corrupt, but not when it rejects it for any
 //     other reason (a newer format version, say), so newer data is never silently replaced.
+//   - Telling failures apart. If no copy is usable, the error wraps fs.ErrNotExist only when
+//     there is none at all, ErrCorrupt only when every copy there is corrupt, and otherwise the
+//     reasons of the copies that could not be read or are of a format the parser refused.
+//   - Setting aside. SetAside renames damaged copies to names that say when, never over another
+//     file and never deleting one; Remove deletes a file and its previous copy, the previous
+//     copy first, durably.
 //   - Clean-up. Temporary files left by a write that was killed midway are removed by the next
-//     write of the same path.
+//     write (or Remove) of the same path.
 //
 // # What is not covered
 //
@@ -53,9 +61,21 @@
 // # What the caller must do
 //
 // Give WriteFile a body that is empty or ends in a newline, at most MaxBodySize bytes, and
-// write each path from one goroutine of one process at a time. On reading, treat an error
-// wrapping fs.ErrNotExist as a first run, log one wrapping ErrUsedPrevious and go on with the
-// data returned, and treat any other error as no state at all, leaving the files alone for
-// inspection. A parser given to Decode returns errors wrapping ErrCorrupt for content it cannot
-// use. Do not name one stored file after another's previous copy (path+PrevSuffix).
+// write (and Remove, and SetAside) each path from one goroutine of one process at a time. A
+// parser given to Decode returns errors wrapping ErrCorrupt for content it cannot use, and
+// other errors for content it must not pass over (a newer format version). On reading:
+//
+//   - nil: use the data.
+//   - An error wrapping ErrUsedPrevious: log it, and go on with the data returned.
+//   - An error wrapping fs.ErrNotExist: a first run; start with no state.
+//   - An error wrapping ErrCorrupt: every copy is damaged. Call SetAside, so that the damaged
+//     files are kept for inspection and out of the way of the next write, start with no state,
+//     and say so loudly, at error level, naming the files set aside: whatever the state held
+//     (a memory map, a calibration) has to be learned again.
+//   - Any other error (a copy of a format this build does not know, a file that cannot be
+//     read): leave the files alone and do not start with no state that the next write would
+//     save over them; stop, or run without that state and without writing it, saying why.
+//
+// Do not name one stored file after another's previous copy (path+PrevSuffix), its temporary
+// files (path+".tmp-…") or its set-aside copies (path+".damaged-…").
 package store

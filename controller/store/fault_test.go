@@ -114,6 +114,13 @@ func (f *faultOps) Link(o, n string) error {
 	return f.osOps.Link(o, n)
 }
 
+func (f *faultOps) Lstat(name string) (fs.FileInfo, error) {
+	if err := f.step("lstat", name); err != nil {
+		return nil, err
+	}
+	return f.osOps.Lstat(name)
+}
+
 func (f *faultOps) Rename(o, n string) error {
 	if err := f.step("rename", o, n); err != nil {
 		return err
@@ -128,8 +135,9 @@ func (f *faultOps) SyncDir(dir string) error {
 	return f.osOps.SyncDir(dir)
 }
 
-// The order of a write's steps is what makes it safe: the previous copy exists before the
-// rename, the data is synced before it, and the directory after it.
+// The order of a write's steps is what makes it safe: the new previous copy is complete under
+// a temporary name before it replaces the old one, and exists before the rename of the new
+// file; the data is synced before that rename, and the directory after it.
 func TestWriteStepOrder(t *testing.T) {
 	newFile := []string{"create state.tmp-*", "write", "sync", "close", "rename state.tmp-* state", "syncdir"}
 	for _, tc := range []struct {
@@ -139,10 +147,12 @@ func TestWriteStepOrder(t *testing.T) {
 		want   []string
 	}{
 		{"first write", false, 0, slices.Concat([]string{"readdir", "read state"}, newFile)},
-		{"replacing", false, 1,
-			slices.Concat([]string{"readdir", "read state", "remove state.prev", "link state state.prev"}, newFile)},
+		{"replacing", false, 1, slices.Concat(
+			[]string{"readdir", "read state", "link state state.prev.tmp-*",
+				"rename state.prev.tmp-* state.prev", "remove state.prev.tmp-*"},
+			newFile)},
 		{"replacing without hard links", true, 1, slices.Concat(
-			[]string{"readdir", "read state", "remove state.prev", "link state state.prev",
+			[]string{"readdir", "read state", "link state state.prev.tmp-*",
 				"create state.prev.tmp-*", "write", "sync", "close", "rename state.prev.tmp-* state.prev", "syncdir"},
 			newFile)},
 	} {
@@ -163,8 +173,8 @@ func TestWriteStepOrder(t *testing.T) {
 }
 
 // A write that fails (or dies) at any one of its steps leaves a readable file, the old body or
-// the new one, and no fallback is needed; the next write then succeeds, keeps a good previous
-// copy and leaves no temporary files behind.
+// the new one, and no fallback is needed, and a good previous copy beside it; the next write
+// then succeeds, keeps a good previous copy and leaves no temporary files behind.
 func TestWriteFailureAtEveryStep(t *testing.T) {
 	older, old, newer := lines("older", 4), lines("old", 5), lines("new", 6)
 	for _, mode := range []struct {
@@ -196,6 +206,15 @@ func TestWriteFailureAtEveryStep(t *testing.T) {
 				if err != nil {
 					t.Fatalf("%s: ReadFile = %v", at, err)
 				}
+				// There was a previous copy before the write, so there must be one after it,
+				// however it ended: the one before, or the file the write replaced.
+				prev, err := os.ReadFile(path + PrevSuffix)
+				if err != nil {
+					t.Fatalf("%s (write: %v): no previous copy: %v", at, writeErr, err)
+				}
+				if body, err := Verify(prev); err != nil || !bytes.Equal(body, older) && !bytes.Equal(body, old) {
+					t.Fatalf("%s (write: %v): previous copy = %q, %v; want the older body or the old", at, writeErr, body, err)
+				}
 				switch {
 				case bytes.Equal(got, newer):
 				case bytes.Equal(got, old) && writeErr != nil:
@@ -212,7 +231,7 @@ func TestWriteFailureAtEveryStep(t *testing.T) {
 				if got, err := ReadFile(path); err != nil || !bytes.Equal(got, newer) {
 					t.Fatalf("%s: after a clean write: %q, %v", at, got, err)
 				}
-				prev, err := os.ReadFile(path + PrevSuffix)
+				prev, err = os.ReadFile(path + PrevSuffix)
 				if err != nil {
 					t.Fatalf("%s: no previous copy after a clean write: %v", at, err)
 				}

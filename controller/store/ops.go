@@ -13,6 +13,7 @@ type fileOps interface {
 	CreateTemp(dir, pattern string) (tempFile, error)
 	Remove(name string) error
 	Link(oldname, newname string) error
+	Lstat(name string) (fs.FileInfo, error)
 	Rename(oldpath, newpath string) error
 	SyncDir(dir string) error
 }
@@ -31,6 +32,7 @@ func (osOps) ReadDir(name string) ([]fs.DirEntry, error) { return os.ReadDir(nam
 func (osOps) ReadFile(name string) ([]byte, error)       { return readBounded(name) }
 func (osOps) Remove(name string) error                   { return os.Remove(name) }
 func (osOps) Link(oldname, newname string) error         { return os.Link(oldname, newname) }
+func (osOps) Lstat(name string) (fs.FileInfo, error)     { return os.Lstat(name) }
 func (osOps) Rename(oldpath, newpath string) error       { return os.Rename(oldpath, newpath) }
 
 // CreateTemp creates the file with mode 0600, as os.CreateTemp does.

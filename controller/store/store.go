@@ -5,8 +5,10 @@ import (
 	"fmt"
 	"io"
 	"io/fs"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 )
 
@@ -22,9 +24,12 @@ const (
 
 // Outcomes of ReadFile and Decode, for errors.Is.
 var (
-	// ErrCorrupt: no usable copy. A copy is corrupt when it fails its checksum (torn,
-	// truncated or edited), is larger than MaxBodySize allows, or a Decode parse function
-	// rejects its body with an error wrapping ErrCorrupt.
+	// ErrCorrupt: no usable copy, and every copy there is (one or both) is corrupt: it fails
+	// its checksum (torn, truncated or edited), is larger than MaxBodySize allows, or a Decode
+	// parse function rejects its body with an error wrapping ErrCorrupt. Nothing in the files
+	// can be used, and the caller may set them aside (SetAside) and start afresh. A copy that
+	// could not be read, or whose content a parse function rejects for another reason (a newer
+	// format), keeps the error from matching ErrCorrupt.
 	ErrCorrupt = errors.New("corrupt file")
 	// ErrUsedPrevious: the main copy was missing or unusable, and the data returned with this
 	// error came from the previous copy. The data is good; the caller should log the error.
@@ -50,8 +55,9 @@ func WriteFile(path string, body []byte) error {
 // removed. If the main copy is missing, unreadable or corrupt and the previous copy is good, it
 // returns the previous copy's body together with an error wrapping ErrUsedPrevious (and saying
 // what was wrong with the main copy). If neither copy exists (a first run), the error wraps
-// fs.ErrNotExist; if no copy is usable, it wraps the reasons for both, ErrCorrupt among them
-// when a copy was corrupt. fs.ErrNotExist is wrapped only when neither copy exists, so that a
+// fs.ErrNotExist. If no copy is usable, the error says what was wrong with each copy; it wraps
+// ErrCorrupt if every copy there is corrupt, and otherwise the reasons (an I/O error, say) of
+// those that are not. fs.ErrNotExist is wrapped only when neither copy exists, so that a
 // missing file is never mistaken for a first run while a damaged copy lies beside it.
 func ReadFile(path string) ([]byte, error) {
 	return Decode(path, func(body []byte) ([]byte, error) { return body, nil })
@@ -62,8 +68,10 @@ func ReadFile(path string) ([]byte, error) {
 // must return an error wrapping ErrCorrupt for content it cannot use: then the previous copy is
 // tried, as for a failed checksum. Any other error from parse ends the read with that error and
 // no fallback: a file this build does not understand, of a newer format say, must not be passed
-// over for an older copy that the next write would then make current. parse is called at most
-// once per copy, only with verified bodies, and the value it returns is returned as is.
+// over for an older copy that the next write would then make current; when the main copy is
+// unusable and the previous copy is rejected that way, the error wraps the parse error and not
+// ErrCorrupt, so that the previous copy is not set aside. parse is called at most once per
+// copy, only with verified bodies, and the value it returns is returned as is.
 func Decode[T any](path string, parse func(body []byte) (T, error)) (T, error) {
 	var zero T
 	v, mainErr := decodeCopy(path, parse)
@@ -74,16 +82,10 @@ func Decode[T any](path string, parse func(body []byte) (T, error)) (T, error) {
 		return zero, fmt.Errorf("store: read %s: %w", path, f.err)
 	}
 	pv, prevErr := decodeCopy(path+PrevSuffix, parse)
-	mainGone := errors.Is(mainErr, fs.ErrNotExist)
-	prevGone := errors.Is(prevErr, fs.ErrNotExist)
-	switch {
-	case prevErr == nil:
+	if prevErr == nil {
 		return pv, fmt.Errorf("store: read %s: %w; main copy: %v", path, ErrUsedPrevious, mainErr)
-	case mainGone && prevGone:
-		return zero, fmt.Errorf("store: read %s: %w", path, mainErr)
 	}
-	return zero, fmt.Errorf("store: read %s: %w; %w", path, copyReason("main", mainErr, mainGone),
-		copyReason("previous", unwrapFinal(prevErr), prevGone))
+	return zero, fmt.Errorf("store: read %s: %w", path, noUsableCopy(mainErr, unwrapFinal(prevErr)))
 }
 
 // finalError marks a parse error that must not lead to the previous copy. decodeCopy returns
@@ -99,10 +101,24 @@ func unwrapFinal(err error) error {
 	return err
 }
 
-// copyReason says what was wrong with one copy. A missing copy is said but not wrapped: only
-// the absence of both copies may match fs.ErrNotExist.
-func copyReason(which string, err error, gone bool) error {
-	if gone {
+// noUsableCopy says what was wrong with each copy. Only the absence of both matches
+// fs.ErrNotExist, and only damage to every copy there is matches ErrCorrupt: a caller told
+// ErrCorrupt sets the files aside and starts afresh, which it must not do over a copy that
+// could not be read (a wrong permission, an I/O error) or is of a format this build does not
+// know.
+func noUsableCopy(mainErr, prevErr error) error {
+	mainGone, prevGone := errors.Is(mainErr, fs.ErrNotExist), errors.Is(prevErr, fs.ErrNotExist)
+	if mainGone && prevGone {
+		return mainErr
+	}
+	damaged := (mainGone || errors.Is(mainErr, ErrCorrupt)) && (prevGone || errors.Is(prevErr, ErrCorrupt))
+	return fmt.Errorf("%w; %w", copyReason("main", mainErr, damaged), copyReason("previous", prevErr, damaged))
+}
+
+// copyReason says what was wrong with one copy, wrapping the reason only if it may show
+// through: never a missing copy's, and damage only when every copy is damaged.
+func copyReason(which string, err error, allDamaged bool) error {
+	if errors.Is(err, fs.ErrNotExist) || !allDamaged && errors.Is(err, ErrCorrupt) {
 		return fmt.Errorf("%s copy: %v", which, err)
 	}
 	return fmt.Errorf("%s copy: %w", which, err)
@@ -179,19 +195,32 @@ func splitPath(path string) (dir, base string) {
 	return dir, base
 }
 
+// keepPrevious makes the current file, old being its verified content, the previous copy, with
+// no moment at which there is none once there has been one: the new previous copy is made under
+// a temporary name, a hard link so that its data is never written again or, where the
+// filesystem has no hard links, a copy made the same atomic way as the file itself, and then
+// renamed over the old one. Removing the old one first would leave a gap in which a kill loses
+// both. The directory is synced once the file itself has been replaced.
 func keepPrevious(ops fileOps, path string, old []byte) error {
 	prev := path + PrevSuffix
-	if err := ops.Remove(prev); err != nil && !errors.Is(err, fs.ErrNotExist) {
-		return fmt.Errorf("remove old previous copy: %w", err)
-	}
-	if err := ops.Link(path, prev); err == nil {
+	dir, base := splitPath(prev)
+	// Not os.CreateTemp: a link cannot be made over a file it has created. A name taken all
+	// the same (by a writer breaking the one-writer rule) fails the link, and the copy follows.
+	tmp := filepath.Join(dir, base+tempInfix+strconv.FormatUint(uint64(rand.Uint32()), 10))
+	if err := ops.Link(path, tmp); err != nil {
+		if err := replaceFile(ops, dir, base, prev, old); err != nil {
+			return fmt.Errorf("keep previous copy: %w", err)
+		}
 		return nil
 	}
-	// Some filesystems have no hard links: copy instead, as atomically as the file itself.
-	dir, base := splitPath(prev)
-	if err := replaceFile(ops, dir, base, prev, old); err != nil {
-		return fmt.Errorf("keep previous copy: %w", err)
+	if err := ops.Rename(tmp, prev); err != nil {
+		ops.Remove(tmp)
+		return fmt.Errorf("keep previous copy: rename %s: %w", tmp, err)
 	}
+	// Renaming a link over another link of the same file succeeds and does nothing (POSIX
+	// rename), leaving tmp: that is the case when a write was killed between this rename and
+	// replacing the file. Should this removal fail too, the next write's clean-up takes tmp.
+	ops.Remove(tmp)
 	return nil
 }
 

@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"slices"
 	"strings"
+	"syscall"
 	"testing"
 )
 
@@ -305,19 +306,109 @@ func TestDecode(t *testing.T) {
 	}
 }
 
-// A previous copy of a newer format is reported as such when the main copy is corrupt.
-func TestDecodeReportsBothReasons(t *testing.T) {
-	path := filepath.Join(t.TempDir(), "state")
-	if err := os.WriteFile(path+PrevSuffix, AppendChecksum([]byte("v2\n")), 0o600); err != nil {
+// copyKind is what lies at one copy's path in TestDecodeOutcomes.
+type copyKind int
+
+const (
+	missing    copyKind = iota
+	good                // verifies and parses
+	torn                // fails its checksum
+	rejected            // verifies, but the parser finds it corrupt
+	unreadable          // a directory: opening works, reading fails
+	newer               // verifies, but is of a format the parser does not know
+)
+
+var kindNames = [...]string{"missing", "good", "torn", "rejected", "unreadable", "newer"}
+
+func (k copyKind) String() string { return kindNames[k] }
+
+// outcome is how a caller must take Decode's result; see "What the caller must do" in doc.go.
+type outcome int
+
+const (
+	outUseMain    outcome = iota // nil error
+	outUsePrev                   // ErrUsedPrevious, with the previous copy's data
+	outFirstRun                  // fs.ErrNotExist
+	outSetAside                  // ErrCorrupt
+	outLeaveAlone                // errNewer or an I/O error, and none of the above
+)
+
+var outcomeNames = [...]string{"use the main copy", "use the previous copy", "first run", "set aside", "leave alone"}
+
+func (o outcome) String() string { return outcomeNames[o] }
+
+func plant(t *testing.T, name string, k copyKind, body []byte) {
+	t.Helper()
+	var err error
+	switch k {
+	case good:
+		err = os.WriteFile(name, AppendChecksum(slices.Clone(body)), 0o600)
+	case torn:
+		err = os.WriteFile(name, AppendChecksum(slices.Clone(body))[:len(body)/2], 0o600)
+	case rejected:
+		err = os.WriteFile(name, AppendChecksum([]byte("bad\n")), 0o600)
+	case unreadable:
+		err = os.Mkdir(name, 0o700)
+	case newer:
+		err = os.WriteFile(name, AppendChecksum([]byte("v2\nok\n")), 0o600)
+	}
+	if err != nil {
 		t.Fatal(err)
 	}
-	if err := os.WriteFile(path, []byte("torn"), 0o600); err != nil {
-		t.Fatal(err)
+}
+
+// Every pairing of a main and a previous copy, and how Decode's error tells the caller what to
+// do: ErrCorrupt only when every copy there is damaged, so that nothing the caller could still
+// use, or must not pass over, is set aside.
+func TestDecodeOutcomes(t *testing.T) {
+	prevKinds := []copyKind{missing, good, torn, rejected, unreadable, newer}
+	want := map[copyKind][]outcome{ // by main copy, then by previous copy in prevKinds' order
+		missing:    {outFirstRun, outUsePrev, outSetAside, outSetAside, outLeaveAlone, outLeaveAlone},
+		good:       {outUseMain, outUseMain, outUseMain, outUseMain, outUseMain, outUseMain},
+		torn:       {outSetAside, outUsePrev, outSetAside, outSetAside, outLeaveAlone, outLeaveAlone},
+		rejected:   {outSetAside, outUsePrev, outSetAside, outSetAside, outLeaveAlone, outLeaveAlone},
+		unreadable: {outLeaveAlone, outUsePrev, outLeaveAlone, outLeaveAlone, outLeaveAlone, outLeaveAlone},
+		newer:      {outLeaveAlone, outLeaveAlone, outLeaveAlone, outLeaveAlone, outLeaveAlone, outLeaveAlone},
 	}
-	calls := 0
-	_, err := Decode(path, parseTagged("ok", &calls))
-	if !errors.Is(err, ErrCorrupt) || !errors.Is(err, errNewer) {
-		t.Fatalf("Decode error %v: want both the main copy's ErrCorrupt and the previous copy's reason", err)
+	mainBody, prevBody := lines("ok", 3), lines("ok", 2)
+	for mk, row := range want {
+		for i, pk := range prevKinds {
+			t.Run(fmt.Sprintf("main %v, previous %v", mk, pk), func(t *testing.T) {
+				path := filepath.Join(t.TempDir(), "state")
+				plant(t, path, mk, mainBody)
+				plant(t, path+PrevSuffix, pk, prevBody)
+				calls := 0
+				got, err := Decode(path, parseTagged("ok", &calls))
+				is := func(target error) bool { return errors.Is(err, target) }
+				var ok bool
+				switch row[i] {
+				case outUseMain:
+					ok = err == nil && got == string(mainBody)
+				case outUsePrev:
+					ok = is(ErrUsedPrevious) && got == string(prevBody) && !is(ErrCorrupt) && !is(fs.ErrNotExist)
+				case outFirstRun:
+					ok = is(fs.ErrNotExist) && got == "" && !is(ErrCorrupt)
+				case outSetAside:
+					ok = is(ErrCorrupt) && got == "" && !is(fs.ErrNotExist) && !is(errNewer)
+				case outLeaveAlone:
+					ok = err != nil && got == "" && !is(ErrCorrupt) && !is(fs.ErrNotExist) && !is(ErrUsedPrevious)
+					// Whatever stopped the read is what the error names.
+					if mk == newer || pk == newer {
+						ok = ok && is(errNewer)
+					}
+					if mk == unreadable || pk == unreadable && mk != newer {
+						ok = ok && is(syscall.EISDIR)
+					}
+				}
+				if !ok {
+					t.Fatalf("Decode = %q, %v; want %q", got, err, row[i])
+				}
+				// Both copies' troubles are said, whichever is wrapped.
+				if err != nil && !is(ErrUsedPrevious) && mk != newer && pk != missing && !strings.Contains(err.Error(), "previous copy") {
+					t.Fatalf("Decode error %q does not say what was wrong with the previous copy", err)
+				}
+			})
+		}
 	}
 }
 
