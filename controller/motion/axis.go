@@ -249,10 +249,15 @@ type Axis struct {
 	prof      Profile
 	dir       Direction
 	planned   int64
-	counted   int64 // pulses of the move already in pos
+	counted   int64     // pulses of the move already in pos
+	countedAt time.Time // when counted was last brought up to date
 	target    Steps
 	limitsWas [2]bool // lower and upper limit switch state when the move started
 	unsettled bool    // a move ended and its settling time has not been waited
+
+	// clearAt is where a follow with a condition last found it false: the condition became true
+	// somewhere between there and where it fired (a late poll can put that far apart).
+	clearAt Steps
 
 	// Gear play: the last direction the motor ran and how far since it last reversed.
 	lastDir Direction
@@ -351,9 +356,11 @@ func (a *Axis) PositionAt(t time.Time) float64 {
 		return float64(a.pos)
 	}
 	// The motor stands at the last pulse until the next: the position at t is the count of
-	// pulses emitted by then, a whole number of steps.
+	// pulses emitted by then, a whole number of steps. A drive that has fallen behind its plan
+	// (a pulse generator on a loaded computer) has emitted no more by t than it had counted at a
+	// later poll: so a poll after t bounds the plan from the drive's own count.
 	x := float64(a.prof.StepsAt(t.Sub(a.t0)))
-	if !a.moving {
+	if !a.moving || !a.countedAt.Before(t) {
 		x = min(x, float64(a.counted))
 	}
 	return float64(a.from) + float64(a.dir)*x
@@ -601,6 +608,7 @@ func (a *Axis) poll() error {
 	}
 	emitted, running := a.d.Progress()
 	a.account(emitted)
+	a.countedAt = a.clk.Now()
 	if emitted > a.planned {
 		return a.trip(fmt.Errorf("%w: %s emitted %d pulses of a %d-pulse move", ErrDrive, a.d, emitted, a.planned))
 	}
@@ -650,6 +658,9 @@ func (a *Axis) Wait(ctx context.Context) error {
 // until, it checks until at every poll and, the first time it reports true, begins a ramped
 // stop and notes the position.
 func (a *Axis) follow(ctx context.Context, until func() (bool, error), settle bool) (fired bool, at Steps, err error) {
+	a.mu.Lock()
+	a.clearAt = a.pos
+	a.mu.Unlock()
 	for {
 		a.mu.Lock()
 		err := a.poll()
@@ -661,6 +672,8 @@ func (a *Axis) follow(ctx context.Context, until func() (bool, error), settle bo
 			} else if hit {
 				fired, at = true, a.pos
 				a.rampStop()
+			} else {
+				a.clearAt = a.pos
 			}
 		}
 		a.mu.Unlock()

@@ -72,8 +72,12 @@ func (a *Axis) home(ctx context.Context) error {
 	if !hit {
 		return fmt.Errorf("%w: seeking %d steps %s", ErrSwitchNeverTriggered, h.MaxTravel, h.Dir)
 	}
-	// The fast seek overshoots the edge by its stopping distance; backing off must cover that.
-	past := abs(a.Position() - edge)
+	// The fast seek overshoots the edge by its stopping distance, and by however far it ran
+	// between the last poll that found the switch open and the one that found it active (a
+	// poll comes late on a busy computer); backing off must cover both.
+	a.mu.Lock()
+	past := max(abs(a.pos-edge), abs(a.pos-a.clearAt))
+	a.mu.Unlock()
 	released, rel, err := a.leg(ctx, away, past+2*h.BackOff, h.FastSpeed, a.homeReleased)
 	if err != nil {
 		return err
