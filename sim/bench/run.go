@@ -41,6 +41,12 @@ type Case struct {
 	BestSWR       float64 `json:"best_swr"`
 	PreSWR        float64 `json:"preposition_swr,omitempty"`
 	Prepositioned bool    `json:"prepositioned,omitempty"`
+	// LimitViolations, Stalls and ControllerLimitViolations are the rig's counts over the
+	// whole scenario, warm history included (Rig.LimitViolations, Rig.Stalls,
+	// Rig.ControllerLimitViolations).
+	LimitViolations           int   `json:"limit_violations"`
+	Stalls                    int64 `json:"stalls"`
+	ControllerLimitViolations int   `json:"controller_limit_violations"`
 }
 
 // Summary is one strategy's figures over all scenarios; the JSON keys are the benchmark's
@@ -53,8 +59,16 @@ type Summary struct {
 	MedianSWRExcess    float64 `json:"median_swr_excess"`
 	MedianOverheadS    float64 `json:"median_overhead_s"`
 	PrepositionHitRate float64 `json:"preposition_hit_rate"`
-	LimitViolations    int     `json:"limit_violations"`
-	Stalls             int     `json:"stalls"`
+	// LimitViolations counts moves that took the simulator's true shaft outside the soft
+	// limits by more than the gear play accounts for (Rig.LimitViolations); Stalls counts pulses
+	// the motor received against a hard end stop (Rig.Stalls). Both are the truth, which the
+	// controller cannot see; both should be 0.
+	LimitViolations int   `json:"limit_violations"`
+	Stalls          int64 `json:"stalls"`
+	// ControllerLimitViolations counts moves outside the soft limits in the controller's own
+	// coordinates (Rig.ControllerLimitViolations): a check of its bookkeeping, blind to lost
+	// steps.
+	ControllerLimitViolations int `json:"controller_limit_violations"`
 }
 
 // Report is a whole run.
@@ -87,7 +101,10 @@ func Run(ctx context.Context, o Options) (Report, error) {
 		sort.Strings(o.Names)
 	}
 	if o.Knobs.Bands == nil {
+		// Ranges left out take the defaults; a test mode asked for stays on.
+		j := o.Knobs.Jitter
 		o.Knobs = DefaultKnobs()
+		o.Knobs.Jitter = j
 	}
 	if o.Workers <= 0 {
 		o.Workers = runtime.GOMAXPROCS(0)
@@ -153,9 +170,7 @@ feed:
 
 type caseResult struct {
 	Case
-	oracleS    float64
-	violations int
-	stalls     int
+	oracleS float64
 }
 
 // runScenario runs every strategy on a fresh rig for the scenario; the history (warm) is
@@ -172,7 +187,7 @@ func runScenario(ctx context.Context, sc Scenario, k Knobs) ([]caseResult, error
 		})
 		var err error
 		r, err = NewRig(RigOptions{Truth: sc.Truth, Described: sc.Described, Start: sc.Start, Observer: obs,
-			NominalBacklash: nominalBacklash(k)})
+			NominalBacklash: nominalBacklash(k), Jitter: sc.Jitter})
 		if err != nil {
 			return nil, err
 		}
@@ -209,7 +224,9 @@ func runScenario(ctx context.Context, sc Scenario, k Knobs) ([]caseResult, error
 			Scenario: sc.ID, Strategy: strat, Station: sc.Base, Band: sc.Band, FreqHz: f, Outcome: a.outcome,
 			TuneS: a.tuneTime.Seconds(), RFS: a.rfTime.Seconds(), SWR: swr, BestSWR: best,
 			Success: swr <= best+SuccessTolerance, Prepositioned: a.prepositioned,
-		}, violations: r.LimitViolations(), stalls: r.Station.Mech.Stalls()}
+			LimitViolations: r.LimitViolations(), Stalls: r.Stalls(),
+			ControllerLimitViolations: r.ControllerLimitViolations(),
+		}}
 		if a.prepositioned {
 			c.PreSWR = a.preSWR
 		}
@@ -268,8 +285,9 @@ func summarise(name string, results [][]caseResult) Summary {
 					hits++
 				}
 			}
-			s.LimitViolations += r.violations
-			s.Stalls += r.stalls
+			s.LimitViolations += r.LimitViolations
+			s.Stalls += r.Stalls
+			s.ControllerLimitViolations += r.ControllerLimitViolations
 		}
 	}
 	n := len(tunes)

@@ -39,6 +39,8 @@ type Scenario struct {
 	Start time.Time
 	// At is when the measured tune starts.
 	At time.Time
+	// Jitter: the scheduling jitter the rig runs with (Knobs.Jitter); zero: none.
+	Jitter Jitter
 }
 
 // Visit is one earlier tune.
@@ -57,6 +59,9 @@ type Knobs struct {
 	Directivity [2]float64 // coupler directivity range, dB; default 22–35
 	Perturb     bool       // the truth differs from the description (strays, inductance, capacitor); default on for built-in presets
 	History     [2]int     // warm: number of earlier tunes; default 6–10
+	// Jitter, if set, gives each scenario's rig the jitter it returns for the scenario's seed
+	// (LoadedBoard, HeavyLoad): a test mode, default off.
+	Jitter func(seed uint64) Jitter
 }
 
 // DefaultKnobs are the benchmark's standard ranges.
@@ -99,6 +104,11 @@ func Generate(stations map[string]sim.Spec, names []string, n int, seed uint64, 
 		draw(r, &truth, k)
 		bands := covered[name]
 		sc := Scenario{ID: i, Seed: desc.Seed, Base: name, Truth: truth, Described: desc, Map: m}
+		if k.Jitter != nil {
+			// From the scenario's seed, not from r: switching jitter on must not change the
+			// scenarios themselves.
+			sc.Jitter = k.Jitter(desc.Seed)
+		}
 		b := bands[r.IntN(len(bands))]
 		sc.Band = b.Name
 		if sc.Freq, err = reachableIn(r, truth, desc, b); err != nil {

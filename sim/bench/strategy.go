@@ -60,6 +60,11 @@ func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	window := math.Abs(pr.Slope) * f * 0.5 / (2 * pr.Q * math.Sqrt(1.5))
 	step := motion.Steps(max(1, math.Floor(window/2)))
 	ax := r.Axis
+	if !ax.Trusted() {
+		// A simple tuner has no notion of a lost position: it trusts its own count of steps,
+		// whatever the controller concluded in the history before it.
+		r.Reference(ax.Position())
+	}
 	lo, hi := ax.SoftLimits()
 	lo += motion.Steps(r.Described.Drive.BacklashSteps) + 120
 	if err := r.Station.Radio.SetFrequency(sc.Freq); err != nil {
@@ -110,9 +115,19 @@ func runOracle(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	}
 	ax := r.Axis
 	ax.UseBacklash(motion.Steps(math.Ceil(st.Spec.Drive.BacklashSteps)))
-	// The oracle sees the shaft: if the motor loses pulses on the way, it goes again.
-	for range 3 {
+	// The oracle sees the shaft: if the motor loses pulses on the way, it goes again. Each try
+	// goes a fraction of the distance left, so a few are enough even for a motor that loses
+	// pulses at the planned speed.
+	lo, hi := ax.SoftLimits()
+	for range 6 {
 		offset := ax.Position() - st.Mech.MotorPosition()
+		if t := best + offset; t < lo || t > hi || !ax.Trusted() {
+			// Steps lost by the thousand put the target outside the soft limits in the axis's
+			// frame, or the controller has given up its position: back to the motor's true
+			// frame, where the best position lies inside them.
+			r.Reference(st.Mech.MotorPosition())
+			offset = 0
+		}
 		if err := ax.Approach(ctx, best+offset); err != nil {
 			return attempt{}, err
 		}

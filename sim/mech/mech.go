@@ -13,6 +13,7 @@ import (
 
 	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/sim/vclock"
 )
 
 // Errors the simulated drive returns, for errors.Is.
@@ -59,6 +60,11 @@ type Options struct {
 
 	SlipOnRelease bool  // releasing the motor lets the shaft slip
 	SlipMax       int64 // largest slip on release, microsteps; default 100
+
+	// StepJitter makes the pulse generator emit pulses late, as one in user space on a loaded
+	// computer does; the zero value keeps every pulse on the plan. See UseStepJitter for the
+	// model. It has its own Seed.
+	StepJitter vclock.Lateness
 
 	Name string // for logs; default "simulated drive"
 }
@@ -134,6 +140,9 @@ func (o *Options) resolve() error {
 	if o.SlipMax < 0 {
 		bad("SlipMax", o.SlipMax, ">= 0")
 	}
+	if err := o.StepJitter.Validate(); err != nil {
+		errs = append(errs, fmt.Errorf("StepJitter: %w", err))
+	}
 	for _, s := range []struct {
 		key string
 		o   **SwitchOptions
@@ -177,18 +186,21 @@ type Mechanics struct {
 	slipRNG *rand.Rand
 	enabled bool
 
-	running  bool
-	mv       motion.Move
-	t0       time.Time
-	emitted  int64       // pulses of the current or last move
-	overRuns []pulseSpan // pulses of the current move beyond the motor's limits, sorted
-	stalled  bool        // the current move has driven into a stop
-	shaft0   float64     // shaft at the start of the current move
+	running     bool
+	mv          motion.Move
+	t0          time.Time
+	emitted     int64       // pulses of the current or last move
+	overRuns    []pulseSpan // pulses of the current move beyond the motor's limits, sorted
+	stalledMove bool        // the current move has driven into a stop
+	shaft0      float64     // shaft at the start of the current move
 
-	motor  int64
-	shaft  float64 // quasi-static: without the ring
-	lost   int64
-	stalls int
+	motor   int64
+	shaft   float64 // quasi-static: without the ring
+	lost    int64
+	stalls  int
+	stalled int64 // pulses that met the shaft held at a stop
+
+	jit *pulseJitter // nil: every pulse on the plan
 
 	ringing bool
 	ringAt  time.Time
@@ -215,6 +227,7 @@ func New(clk clock.Clock, opts Options) (*Mechanics, error) {
 	m.over = newLossStream(rand.New(rand.NewPCG(seed.Uint64(), 2)),
 		1-(1-opts.MissRate)*(1-opts.OverLimitLoss))
 	m.slipRNG = rand.New(rand.NewPCG(seed.Uint64(), 3))
+	m.jit = newPulseJitter(opts.StepJitter)
 	if opts.RandomPlay && opts.Backlash > 0 {
 		m.shaft += (m.slipRNG.Float64() - 0.5) * float64(opts.Backlash)
 	}
@@ -279,8 +292,11 @@ func (m *Mechanics) Start(mv motion.Move) error {
 		return fmt.Errorf("simulated drive: %w", err)
 	}
 	m.mv, m.t0, m.emitted, m.running = mv, now, 0, true
-	m.stalled, m.shaft0, m.ringing = false, m.shaft, false
+	m.stalledMove, m.shaft0, m.ringing = false, m.shaft, false
 	m.overRuns = m.overLimit(mv.Profile)
+	if m.jit != nil {
+		m.jit.start()
+	}
 	m.advance(now)
 	return nil
 }
@@ -364,6 +380,25 @@ func (m *Mechanics) slip(n int64) {
 	m.setShaft(s)
 }
 
+// Restore puts the mechanics at rest where an earlier run left them: the rotor at motor
+// microsteps and the shaft at shaft (clamped to the stops), as a real capacitor stays where it
+// was left. Switches follow. It is refused while a move runs.
+func (m *Mechanics) Restore(motor int64, shaft float64) error {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	m.advance(m.clk.Now())
+	if m.running {
+		return errors.New("mechanics: restore during a move")
+	}
+	if math.IsNaN(shaft) || math.IsInf(shaft, 0) {
+		return fmt.Errorf("mechanics: restore: shaft %v", shaft)
+	}
+	m.motor = motor
+	m.ringing = false
+	m.setShaft(m.clampShaft(shaft))
+	return nil
+}
+
 // Shaft returns the capacitor shaft position at the clock's now, in microsteps, with the gear
 // play and any settling ring.
 func (m *Mechanics) Shaft() float64 {
@@ -407,6 +442,55 @@ func (m *Mechanics) Stalls() int {
 	return m.stalls
 }
 
+// StalledPulses returns how many pulses would have turned the motor but met the shaft held at a
+// hard stop with the gear play already wound up: the pulses a stalled motor receives, which
+// strain the capacitor's end stop. (Pulses the motor lost anyway, at a speed or acceleration
+// beyond it or by MissRate, are LostSteps only.) Stalls counts the moves they came in.
+func (m *Mechanics) StalledPulses() int64 {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	m.advance(m.clk.Now())
+	return m.stalled
+}
+
+// UseStepJitter installs (or, with a zero l, removes) step-timing jitter, between moves (ErrBusy
+// during one). It is for a caller that did not build the Options, such as a test rig around a
+// station.
+//
+// The model is a pulse generator in user space that times each pulse against the move's start
+// (an absolute schedule, as clock_nanosleep with TIMER_ABSTIME gives): before each pulse it
+// sleeps until the plan's instant for it, and that wake-up is late as l says (chance l.P per
+// pulse, a capped lateness of mean l.Mean). A pulse can go no earlier than the one before it,
+// so a late wake-up holds back every pulse planned while it slept, and when the thread runs
+// again it emits them at once and carries on with the plan. Thus:
+//
+//   - pulse k goes out at max over j ≤ k of (plan's instant for j + lateness of j): late by at
+//     most l.Cap(), never early;
+//   - Progress at an instant reports at most the plan's count then, and at least the plan's
+//     count l.Cap() earlier;
+//   - a move emits exactly its planned pulses (Stop(false) aside) and ends at most l.Cap()
+//     after its plan does.
+//
+// Which pulses are lost (MissRate, pull-out, MaxAccel) is still decided on the plan's speed at
+// each pulse: the model assumes the motor follows a catch-up burst, as it does while the burst
+// stays within the rotor's lag margin of a full step or two; a burst past that would lose
+// steps on real hardware, which the model leaves out. The draws come from their own stream
+// seeded by l.Seed, pulse by pulse, so they do not depend on how often the drive is queried.
+func (m *Mechanics) UseStepJitter(l vclock.Lateness) error {
+	if err := l.Validate(); err != nil {
+		return fmt.Errorf("simulated drive: step jitter: %w", err)
+	}
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	m.advance(m.clk.Now())
+	if m.running {
+		return fmt.Errorf("step jitter: %w", ErrBusy)
+	}
+	m.o.StepJitter = l
+	m.jit = newPulseJitter(l)
+	return nil
+}
+
 // Moving reports whether a move is running.
 func (m *Mechanics) Moving() bool {
 	m.mu.Lock()
@@ -423,6 +507,10 @@ func (m *Mechanics) advance(now time.Time) {
 	}
 	el := now.Sub(m.t0)
 	p := m.mv.Profile
+	if m.jit != nil {
+		m.advanceLate(el, p)
+		return
+	}
 	if k := p.StepsAt(el); k > m.emitted {
 		m.pulses(m.emitted+1, k)
 		m.emitted = k
@@ -468,9 +556,10 @@ func (m *Mechanics) pulses(from, to int64) {
 		room = max(room, 0)
 		if eff > room {
 			lost += eff - room
+			m.stalled += eff - room
 			eff = room
-			if !m.stalled {
-				m.stalled = true
+			if !m.stalledMove {
+				m.stalledMove = true
 				m.stalls++
 			}
 		}

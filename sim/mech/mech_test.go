@@ -234,16 +234,17 @@ func TestStallAtHardStop(t *testing.T) {
 	if s, p := m.Shaft(), m.MotorPosition(); s != 5000 || p != 5000+b/2 {
 		t.Fatalf("against the stop: shaft %v, motor %d; want 5000, %d", s, p, 5000+b/2)
 	}
-	if got, want := m.LostSteps(), int64(4000+3000-(5000+b/2)); got != want || m.Stalls() != 1 {
-		t.Fatalf("lost %d (want %d), %d stalls (want 1)", got, want, m.Stalls())
+	if got, want := m.LostSteps(), int64(4000+3000-(5000+b/2)); got != want || m.Stalls() != 1 || m.StalledPulses() != want {
+		t.Fatalf("lost %d (want %d), %d stalls (want 1), %d stalled pulses (want %d)", got, want, m.Stalls(), m.StalledPulses(), want)
 	}
 	move(t, m, clk, motion.Down, 100, 3000, 20000, 0)
 	if s := m.Shaft(); s != 5000+b/2-100+b/2 {
 		t.Fatalf("backing off: shaft %v", s)
 	}
 	move(t, m, clk, motion.Up, 500, 3000, 20000, 0)
-	if m.Stalls() != 2 {
-		t.Fatalf("second drive into the stop: %d stalls, want 2", m.Stalls())
+	// 100 down and 500 up from the motor at 5000+b/2: the first 100 wind back to it, 400 stall.
+	if want := int64(4000+3000-(5000+b/2)) + 400; m.Stalls() != 2 || m.StalledPulses() != want {
+		t.Fatalf("second drive into the stop: %d stalls, want 2; %d stalled pulses, want %d", m.Stalls(), m.StalledPulses(), want)
 	}
 }
 
