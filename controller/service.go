@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"runtime/debug"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -69,7 +70,10 @@ type Options struct {
 	Observer tune.Observer
 	// OnResult, if set, is called with every operation's result, on the service's goroutine.
 	OnResult func(tune.Result)
-	Logger   *slog.Logger
+	// Notices are things the operator must hear of that happened before the service started
+	// (a damaged map set aside, say); every snapshot carries them.
+	Notices []string
+	Logger  *slog.Logger
 }
 
 // Snapshot is the service's state as readers see it.
@@ -83,6 +87,8 @@ type Snapshot struct {
 	Pending   *Request     // waiting to run
 	MapPoints int
 	Drift     memmap.Drift
+	Fault     string   // the latched fault, the tuner's or the axis's; empty if none
+	Notices   []string // see Options.Notices
 }
 
 // Service runs the tuner. Create it with NewService, start Run on one goroutine, and Submit
@@ -90,6 +96,7 @@ type Snapshot struct {
 type Service struct {
 	tuner *tune.Tuner
 	d     tune.Deps
+	to    tune.Options
 	o     Options
 	log   *slog.Logger
 
@@ -101,6 +108,7 @@ type Service struct {
 
 	snap  atomic.Pointer[Snapshot]
 	state atomic.Value // tune.State
+	fault atomic.Pointer[string]
 }
 
 // NewService builds the tuner on d and o and the service around it.
@@ -108,7 +116,7 @@ func NewService(d tune.Deps, to tune.Options, o Options) (*Service, error) {
 	if o.Logger == nil {
 		o.Logger = slog.New(slog.DiscardHandler)
 	}
-	s := &Service{d: d, o: o, log: o.Logger.With("component", "service"), wake: make(chan struct{}, 1)}
+	s := &Service{d: d, to: to, o: o, log: o.Logger.With("component", "service"), wake: make(chan struct{}, 1)}
 	next := d.Observer
 	d.Observer = tune.ObserverFunc(func(e tune.Event) {
 		if e.Kind == tune.KindState {
@@ -172,6 +180,12 @@ func (s *Service) publish(last *tune.Result) {
 	if st, ok := s.state.Load().(tune.State); ok {
 		sn.State = st
 	}
+	sn.Notices = s.o.Notices
+	if f := s.fault.Load(); f != nil {
+		sn.Fault = *f
+	} else if sn.Axis.Fault != "" {
+		sn.Fault = sn.Axis.Fault
+	}
 	if s.current != nil {
 		sn.Freq = s.current.Freq
 	}
@@ -216,15 +230,66 @@ func (s *Service) Run(ctx context.Context) error {
 				continue
 			}
 		}
-		res := s.do(opCtx, *r)
+		res := s.serve(opCtx, r)
 		s.mu.Lock()
 		s.cancel()
 		s.cancel, s.current = nil, nil
 		s.mu.Unlock()
-		s.after(r, res)
+		s.guarded(func() { s.after(r, res) })
 		if ctx.Err() != nil {
 			return nil
 		}
+	}
+}
+
+// serve runs one request, turning a panic anywhere in it into a latched fault.
+func (s *Service) serve(ctx context.Context, r *Request) (res tune.Result) {
+	now := s.d.Clock.Now()
+	res = tune.Result{Outcome: tune.Fault, Freq: r.Freq, Started: now, Finished: now}
+	s.guarded(func() { res = s.do(ctx, *r) })
+	if res.Outcome == tune.Fault && res.Err == nil {
+		res.Err = s.tuner.Fault()
+	}
+	return res
+}
+
+// guarded runs f and recovers a panic in it: the carrier is dropped, the motor stopped and
+// released, and a fault latched (logged with the stack), and the service carries on, refusing
+// to move or transmit until a reset.
+func (s *Service) guarded(f func()) {
+	defer func() {
+		r := recover()
+		if r == nil {
+			return
+		}
+		err := fmt.Errorf("%w: panic in the service: %v", tune.ErrInternal, r)
+		s.log.Error("panic: carrier dropped, motor stopped, fault latched; the service goes on", "err", err, "stack", string(debug.Stack()))
+		s.quiesce()
+		s.tuner.Latch(err)
+		msg := s.tuner.Fault().Error()
+		s.fault.Store(&msg)
+	}()
+	f()
+}
+
+// quiesce makes the hardware safe after something went wrong outside the tuner's own paths:
+// the tune carrier dropped (only if the tuner may key it: an operator's carrier is the
+// operator's), the motor stopped and released.
+func (s *Service) quiesce() {
+	defer func() {
+		if r := recover(); r != nil {
+			s.log.Error("panic while making the hardware safe", "panic", r)
+		}
+	}()
+	if s.to.Transmit && s.d.Transmitter != nil {
+		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+		if err := s.d.Transmitter.Unkey(ctx); err != nil {
+			s.log.Error("could not drop the tune carrier", "err", err)
+		}
+		cancel()
+	}
+	if err := s.d.Axis.Halt(); err != nil {
+		s.log.Error("halt", "err", err)
 	}
 }
 
@@ -244,7 +309,11 @@ func (s *Service) do(ctx context.Context, r Request) tune.Result {
 		res := tune.Result{Outcome: tune.Reset, Started: now, Finished: now}
 		if err := t.Reset(); err != nil {
 			res.Outcome, res.Err = tune.Fault, err
+		} else if err := s.d.Axis.Enable(ctx); err != nil {
+			// a fault may have released the motor; a reset energises it again
+			res.Outcome, res.Err = tune.Fault, err
 		}
+		res.Finished = s.d.Clock.Now()
 		return res
 	}
 	return tune.Result{Outcome: tune.Fault, Err: fmt.Errorf("request kind %q", r.Kind)}
@@ -262,7 +331,14 @@ func (s *Service) after(r *Request, res tune.Result) {
 			s.log.Error("could not save the calibration", "path", s.o.CalibrationPath, "err", err)
 		}
 	}
+	if err := s.tuner.Fault(); err != nil {
+		msg := err.Error()
+		s.fault.Store(&msg)
+	} else {
+		s.fault.Store(nil)
+	}
 	s.publish(&res)
+	s.log.Info("request done", "kind", r.Kind, "outcome", res.Outcome, "freq", res.Freq, "err", res.Err)
 	if s.o.OnResult != nil {
 		s.o.OnResult(res)
 	}

@@ -2,6 +2,7 @@ package controller_test
 
 import (
 	"context"
+	"errors"
 	"path/filepath"
 	"testing"
 	"time"
@@ -168,5 +169,96 @@ func TestSubmitRejectsBadRequests(t *testing.T) {
 	}
 	if p := s.Snapshot().Pending; p != nil {
 		t.Errorf("a stop left %+v pending", p)
+	}
+}
+
+// A panic anywhere in an operation (here in an observer, in the middle of the fine sweep, with
+// the carrier on) does not take the service down: the carrier is dropped, the motor stopped, a
+// fault latched and shown in the snapshot, every request refused until a reset, and after the
+// reset the service tunes again. A panic in the code that runs after an operation (here the
+// result callback) is latched the same way.
+func TestServiceSurvivesPanics(t *testing.T) {
+	f := 3750 * physic.KiloHertz
+	panicAt := tune.Refining
+	obs := tune.ObserverFunc(func(e tune.Event) {
+		if e.Kind == tune.KindState && e.State == panicAt {
+			panicAt = ""
+			panic("injected: an observer bug")
+		}
+	})
+	s, r, results := newService(t, controller.Options{Observer: obs})
+	stop := start(t, s)
+	defer stop()
+	if err := r.Station.Radio.SetFrequency(f); err != nil {
+		t.Fatal(err)
+	}
+	submit := func(k controller.Kind) outcome {
+		t.Helper()
+		if err := s.Submit(controller.Request{Kind: k, Freq: f}); err != nil {
+			t.Fatal(err)
+		}
+		return next(t, results)
+	}
+	res := submit(controller.Tune)
+	if res.Outcome != tune.Fault || !errors.Is(res.Err, tune.ErrInternal) {
+		t.Fatalf("the panicking tune: %s (%v), want a fault", res.Outcome, res.Err)
+	}
+	if res.moving || res.keyed {
+		t.Fatal("the panic left the motor running or the carrier on")
+	}
+	if snap := s.Snapshot(); snap.Fault == "" || snap.State != tune.Faulted {
+		t.Fatalf("snapshot after the panic: fault %q, state %s", snap.Fault, snap.State)
+	}
+	if res := submit(controller.Tune); res.Outcome != tune.Fault || r.Station.Radio.Transmitting() {
+		t.Fatalf("a tune with the fault latched: %s", res.Outcome)
+	}
+	if res := submit(controller.Reset); res.Outcome != tune.Reset {
+		t.Fatalf("reset: %s (%v)", res.Outcome, res.Err)
+	}
+	if res := submit(controller.Tune); res.Outcome != tune.Tuned {
+		t.Fatalf("after the reset: %s (%v)", res.Outcome, res.Err)
+	}
+	if snap := s.Snapshot(); snap.Fault != "" {
+		t.Fatalf("fault %q still shown after the reset", snap.Fault)
+	}
+}
+
+func TestServiceSurvivesAPanicAfterAnOperation(t *testing.T) {
+	f := 3750 * physic.KiloHertz
+	done := make(chan tune.Result, 4)
+	first := true
+	r, err := bench.NewRig(bench.RigOptions{Truth: sim.DefaultSpec()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s2, err := controller.NewService(tune.Deps{Axis: r.Axis, Sensor: r.Station.Sensor(), Clock: r.Clock, Map: r.Map,
+		Transmitter: r.Station.Radio}, tune.Options{Transmit: true, NominalBacklash: 64},
+		controller.Options{OnResult: func(res tune.Result) {
+			done <- res
+			if first {
+				first = false
+				panic("injected: a bug after the operation")
+			}
+		}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop := start(t, s2)
+	defer stop()
+	if err := r.Station.Radio.SetFrequency(f); err != nil {
+		t.Fatal(err)
+	}
+	if err := s2.Submit(controller.Request{Kind: controller.Tune, Freq: f}); err != nil {
+		t.Fatal(err)
+	}
+	<-done
+	if err := s2.Submit(controller.Request{Kind: controller.Tune, Freq: f}); err != nil {
+		t.Fatal(err)
+	}
+	if res := <-done; res.Outcome != tune.Fault {
+		t.Fatalf("after a panic outside the operation: %s, want the fault latched", res.Outcome)
+	}
+	if s2.Snapshot().Fault == "" {
+		t.Fatal("no fault shown")
 	}
 }

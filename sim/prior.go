@@ -51,13 +51,25 @@ func (p *Prior) Predict(f physic.Frequency) (memmap.Prediction, bool) {
 	if !(fHz > 0) {
 		return memmap.Prediction{}, false
 	}
+	el := p.rf.Electrical(fHz, 1, p.temp)
 	turns, ok := p.rf.DipTurns(fHz, p.temp)
 	if !ok {
-		return memmap.Prediction{}, false
+		// The capacitor cannot reach it: say where its law, carried on past the nearer end,
+		// would put the dip, so that the controller refuses the frequency without transmitting.
+		c := p.rf.Capacitor()
+		span := c.Options().Span
+		lo, hi := c.At(0, p.temp), c.At(span, p.temp)
+		switch {
+		case !(el.Capacitance == el.Capacitance) || math.IsInf(el.Capacitance, 0):
+			return memmap.Prediction{}, false
+		case el.Capacitance < lo:
+			turns = (el.Capacitance - lo) / c.Slope(0)
+		default:
+			turns = span + (el.Capacitance-hi)/c.Slope(span)
+		}
 	}
-	el := p.rf.Electrical(fHz, 1, p.temp)
 	cTotal := el.Capacitance + p.rf.Model().Stray
-	slopeC := p.rf.Capacitor().Slope(turns) // F per turn
+	slopeC := p.rf.Capacitor().Slope(math.Min(math.Max(turns, 0), p.rf.Capacitor().Options().Span)) // F per turn
 	// C ∝ 1/f²: dC/df = −2C/f.
 	stepsPerFarad := p.stepsPerTurn / slopeC
 	dc := math.Hypot(p.tol.Capacitance*cTotal, p.tol.StrayPF*1e-12)

@@ -32,7 +32,15 @@ func TestPriorSlopeMatchesFiniteDifference(t *testing.T) {
 	if win < 2 || win > 8 {
 		t.Errorf("SWR 1.5 window %.1f steps at 3.75 MHz", win)
 	}
-	if _, ok := p.Predict(30 * physic.MegaHertz); ok {
-		t.Error("30 MHz is beyond the capacitor's range")
+	// 30 MHz needs less than the capacitor's minimum: the prior says so by putting the dip
+	// below the shaft's minimum (the offset, 20 steps), far enough that its 3σ does not reach
+	// back into the travel, so that a controller refuses it without transmitting.
+	if q, ok := p.Predict(30 * physic.MegaHertz); !ok || q.Pos+3*q.Sigma >= 20 {
+		t.Errorf("30 MHz is beyond the capacitor's range; the prior says %+v, %v", q, ok)
+	}
+	// and 1 MHz needs more than its maximum: beyond the end of the travel
+	span := s.Capacitor.SpanTurns * s.StepsPerTurn()
+	if q, ok := p.Predict(1 * physic.MegaHertz); !ok || q.Pos-3*q.Sigma <= 20+span {
+		t.Errorf("1 MHz is beyond the capacitor's range; the prior says %+v, %v (travel ends at %.0f)", q, ok, 20+span)
 	}
 }

@@ -60,17 +60,19 @@ func (d Detector) Validate() error {
 		if !(d.Slope > 0) || d.Slope > 1 {
 			errs = append(errs, fmt.Errorf("detector slope %g V/dB: want more than 0 and at most 1", d.Slope))
 		}
-		if !(d.Ceiling > d.Floor) {
+		if !finite(d.Intercept) || !finite(d.Floor) || !finite(d.Ceiling) {
+			errs = append(errs, fmt.Errorf("detector intercept %g, floor %g, ceiling %g dBm: want finite values", d.Intercept, d.Floor, d.Ceiling))
+		} else if !(d.Ceiling > d.Floor) {
 			errs = append(errs, fmt.Errorf("detector range %g to %g dBm: want floor below ceiling", d.Floor, d.Ceiling))
 		}
 		if d.Floor < d.Intercept {
 			errs = append(errs, fmt.Errorf("detector floor %g dBm: want at or above the intercept %g dBm", d.Floor, d.Intercept))
 		}
 	case SquareLaw:
-		if !(d.Sensitivity > 0) {
+		if !(d.Sensitivity > 0) || math.IsInf(d.Sensitivity, 0) {
 			errs = append(errs, fmt.Errorf("detector sensitivity %g V/W: want more than 0", d.Sensitivity))
 		}
-		if !(d.MaxVolts > 0) {
+		if !(d.MaxVolts > 0) || math.IsInf(d.MaxVolts, 0) {
 			errs = append(errs, fmt.Errorf("detector maximum %g V: want more than 0", d.MaxVolts))
 		}
 	default:
@@ -78,6 +80,8 @@ func (d Detector) Validate() error {
 	}
 	return errors.Join(errs...)
 }
+
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 func dBm(w float64) float64 { return 10*math.Log10(w) + 30 }
 

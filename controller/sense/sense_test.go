@@ -99,3 +99,26 @@ func TestSquareLaw(t *testing.T) {
 		t.Errorf("P(1 V) = %g", p)
 	}
 }
+
+func TestDetectorRefusesNonFiniteValues(t *testing.T) {
+	// a working log detector: 25 mV/dB, intercept -84 dBm, range -75 to +15 dBm (common
+	// practice for log amplifiers)
+	good := Detector{Law: LogLinear, Slope: 0.025, Intercept: -84, Floor: -75, Ceiling: 15}
+	if err := good.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	nan, inf := math.NaN(), math.Inf(1)
+	for name, d := range map[string]Detector{
+		"NaN intercept": {Law: LogLinear, Slope: 0.025, Intercept: nan, Floor: -75, Ceiling: 15},
+		"NaN floor":     {Law: LogLinear, Slope: 0.025, Intercept: -84, Floor: nan, Ceiling: 15},
+		"Inf ceiling":   {Law: LogLinear, Slope: 0.025, Intercept: -84, Floor: -75, Ceiling: inf},
+		"NaN slope":     {Law: LogLinear, Slope: nan, Intercept: -84, Floor: -75, Ceiling: 15},
+		"Inf square":    {Law: SquareLaw, Sensitivity: inf, MaxVolts: 3},
+		"Inf volts":     {Law: SquareLaw, Sensitivity: 10, MaxVolts: inf},
+		"NaN volts":     {Law: SquareLaw, Sensitivity: 10, MaxVolts: nan},
+	} {
+		if err := d.Validate(); err == nil {
+			t.Errorf("%s: accepted", name)
+		}
+	}
+}

@@ -44,17 +44,21 @@ func SaveCalibration(path string, c Calibration) error {
 }
 
 // LoadCalibration reads a calibration saved by SaveCalibration. A file that had to be taken
-// from the previous copy is returned with an error wrapping store.ErrUsedPrevious.
+// from the previous copy is returned with an error wrapping store.ErrUsedPrevious; one whose
+// copies are all damaged (torn, or not a calibration) gives an error wrapping store.ErrCorrupt,
+// and a missing one fs.ErrNotExist.
 func LoadCalibration(path string) (Calibration, error) {
-	body, err := store.ReadFile(path)
-	if err != nil && !errors.Is(err, store.ErrUsedPrevious) {
-		return Calibration{}, fmt.Errorf("load calibration: %w", err)
+	c, err := store.Decode(path, func(body []byte) (Calibration, error) {
+		c, err := ParseCalibration(body)
+		if err != nil {
+			return c, fmt.Errorf("%w: %w", store.ErrCorrupt, err)
+		}
+		return c, nil
+	})
+	if err != nil {
+		return c, fmt.Errorf("load calibration: %w", err)
 	}
-	c, perr := ParseCalibration(body)
-	if perr != nil {
-		return Calibration{}, fmt.Errorf("load calibration %s: %w", path, perr)
-	}
-	return c, err
+	return c, nil
 }
 
 // ParseCalibration parses the body of a calibration file.

@@ -70,9 +70,12 @@ type Prediction struct {
 	Slope   float64 // steps per Hz
 	Width   float64 // expected half-power half-width of the dip, steps
 	Q       float64 // the loaded Q the width was computed from
-	Source  string  // "map", "prior", "none"
+	Source  string  // memmap.SourceMap, SourcePrior, SourceAnchored, or SourceNone
 	Trusted bool    // the axis position is trusted
 }
+
+// SourceNone is a Prediction's Source when neither the map nor a prior knows anything.
+const SourceNone = "none"
 
 // FitReport is what the fine sweep's curve fit found.
 type FitReport struct {

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"slices"
 	"time"
 
 	"periph.io/x/conn/v3/physic"
@@ -12,24 +13,30 @@ import (
 )
 
 // carrierOn makes sure there is a carrier for the RF stages: it keys the transmitter when
-// allowed, or waits for the operator's carrier, checking the coupler.
+// allowed, or waits for the operator's carrier, checking the coupler. From here until
+// carrierOff the guard watches the radio's frequency and counts the carrier time.
 func (p *op) carrierOn() error {
 	t := p.t
 	if err := p.to(AwaitingCarrier); err != nil {
 		return err
 	}
+	// Never key on a frequency other than the one being tuned: the dip found would be the
+	// wrong one, and the carrier somewhere it was not asked for.
+	if got, ok := t.radioFrequency(); ok && absFreq(got-p.res.Freq) > offFrequency {
+		return fmt.Errorf("%w: the radio is on %v, the tune is for %v", ErrOffFrequency, got, p.res.Freq)
+	}
+	p.g.arm()
+	if err := p.check(); err != nil {
+		return err
+	}
 	if t.o.Transmit && !p.keyed {
-		// Never key on a frequency other than the one being tuned: the dip found would be
-		// the wrong one, and the carrier somewhere it was not asked for.
-		if fr, ok := t.d.Transmitter.(FrequencyReader); ok {
-			if got, want := fr.Frequency(), p.res.Freq; absFreq(got-want) > offFrequency {
-				return fmt.Errorf("%w: the radio is on %v, the tune is for %v", ErrOffFrequency, got, want)
-			}
-		}
+		// The unkey is owed from the attempt on: the radio may have keyed before its link
+		// failed to say so.
+		p.keyed = true
+		p.g.rfOn(t.d.Clock.Now())
 		if err := t.d.Transmitter.Key(p.ctx, t.o.TunePower); err != nil {
 			return fmt.Errorf("key the tune carrier: %w", err)
 		}
-		p.keyed = true
 	}
 	until := t.d.Clock.Now().Add(t.o.CarrierWait)
 	for {
@@ -45,10 +52,8 @@ func (p *op) carrierOn() error {
 			return fmt.Errorf("%w: %v", ErrOverPower, r.Forward)
 		}
 		if r.Forward >= t.o.MinForward {
-			if p.rfStart.IsZero() {
-				p.rfStart = r.At
-			}
-			return nil
+			p.g.rfOn(r.At)
+			return p.check()
 		}
 		if !t.d.Clock.Now().Before(until) {
 			return fmt.Errorf("%w within %v (forward %v, need %v)", ErrNoCarrier, t.o.CarrierWait, r.Forward, t.o.MinForward)
@@ -57,13 +62,6 @@ func (p *op) carrierOn() error {
 			return err
 		}
 	}
-}
-
-// FrequencyReader is a Transmitter that can also say what frequency it is on (a radio over
-// CAT, the simulator's radio); the tuner then refuses to key it anywhere but on the frequency
-// it is tuning.
-type FrequencyReader interface {
-	Frequency() physic.Frequency
 }
 
 // offFrequency is how far the radio may be from the tune's frequency: well inside the loop's
@@ -77,23 +75,44 @@ func absFreq(f physic.Frequency) physic.Frequency {
 	return f
 }
 
-// carrierOff drops the tune carrier if the tuner keyed it, and books the RF time. It must run
-// however the operation ends, so it does not honour cancellation.
-func (p *op) carrierOff() {
+// Unkeying: how long one attempt may take, how many attempts, and the pause between them.
+const (
+	unkeyTimeout  = 2 * time.Second
+	unkeyAttempts = 3
+	unkeyPause    = 100 * time.Millisecond
+)
+
+// carrierOff ends the RF stages: it drops the tune carrier if the tuner keyed (or tried to key)
+// it, and books the RF time. It runs however the operation ends, so it does not honour
+// cancellation. An unkey that fails is retried; if every attempt fails the carrier may still be
+// on, and the tuner latches a fault that withdraws its permission to transmit until a reset
+// manages to unkey.
+func (p *op) carrierOff() error {
 	t := p.t
-	if !p.rfStart.IsZero() {
-		p.res.RFTime += t.d.Clock.Now().Sub(p.rfStart)
-		p.rfStart = time.Time{}
-	}
+	p.res.RFTime = p.g.rfOff(t.d.Clock.Now())
 	if !p.keyed {
-		return
+		return nil
 	}
-	ctx, cancel := context.WithTimeout(context.WithoutCancel(p.ctx), 5*time.Second)
-	defer cancel()
-	if err := t.d.Transmitter.Unkey(ctx); err != nil {
-		t.log.Error("could not drop the tune carrier", "err", err)
+	quiet := context.WithoutCancel(p.ctx)
+	var err error
+	for attempt := 1; attempt <= unkeyAttempts; attempt++ {
+		ctx, cancel := context.WithTimeout(quiet, unkeyTimeout)
+		err = t.d.Transmitter.Unkey(ctx)
+		cancel()
+		if err == nil {
+			p.keyed = false
+			return nil
+		}
+		t.log.Error("could not drop the tune carrier", "attempt", attempt, "of", unkeyAttempts, "err", err)
+		if attempt < unkeyAttempts {
+			_ = t.d.Clock.Sleep(quiet, unkeyPause)
+		}
 	}
-	p.keyed = false
+	p.keyed = false // nothing more this operation can do; the latch keeps everything else off
+	err = fmt.Errorf("%w after %d attempts: %w", ErrUnkeyFailed, unkeyAttempts, err)
+	t.log.Error("THE TUNE CARRIER MAY STILL BE ON: transmitting withdrawn until a reset; check the radio", "err", err)
+	t.Latch(err)
+	return err
 }
 
 // read takes one reading with the carrier checks: too much forward power aborts at once,
@@ -109,7 +128,10 @@ func (p *op) read(stage string) (sample, sense.Reading, error) {
 	if err != nil {
 		return sample{}, r, fmt.Errorf("read the coupler: %w", err)
 	}
-	p.readDur = t.d.Clock.Now().Sub(start)
+	p.noteReadingTime(t.d.Clock.Now().Sub(start))
+	if err := p.check(); err != nil {
+		return sample{}, r, err // the radio may have moved while the converter worked
+	}
 	p.res.Readings++
 	if _, _, err := t.d.Axis.Poll(); err != nil {
 		return sample{}, r, err
@@ -134,10 +156,20 @@ func (p *op) read(stage string) (sample, sense.Reading, error) {
 	return s, r, nil
 }
 
-// readingTime is how long one reading takes (measured; a guess before the first).
+// readingTime is how long one reading takes: the median of the last few (a reading on a busy
+// computer now and then takes several times its conversion time; a sweep too sparse for its dip
+// because of such gaps is judged doubtful and swept again more slowly); a guess before the first.
 func (p *op) readingTime() time.Duration {
-	if p.readDur > 0 {
-		return p.readDur
+	n := min(p.nRead, len(p.readDurs))
+	if n == 0 {
+		return 3 * time.Millisecond
 	}
-	return 3 * time.Millisecond
+	d := slices.Clone(p.readDurs[:n])
+	slices.Sort(d)
+	return d[n/2]
+}
+
+func (p *op) noteReadingTime(d time.Duration) {
+	p.readDurs[p.nRead%len(p.readDurs)] = d
+	p.nRead++
 }

@@ -22,55 +22,49 @@ var errNotInWindow = errors.New("dip not within the fine sweep")
 // fit, final approach with the gear play taken up, verify reading. A good tune teaches the map.
 func (t *Tuner) Tune(ctx context.Context, req Request) Result {
 	p := t.begin(ctx, req.Freq)
+	return p.run(func() (Outcome, error) { return p.tune(req) })
+}
+
+func (p *op) tune(req Request) (Outcome, error) {
+	t := p.t
 	if req.Freq <= 0 {
-		return p.finish("", fmt.Errorf("tune: frequency %v: want more than 0", req.Freq))
+		return "", fmt.Errorf("tune: frequency %v: want more than 0", req.Freq)
 	}
-	if err := t.d.Axis.Fault(); err != nil || t.m.state == Faulted {
-		return p.finish("", errors.Join(fmt.Errorf("tune: %w: reset needed", motion.ErrFault), err))
+	if err := p.ready(); err != nil {
+		return "", fmt.Errorf("tune: %w", err)
+	}
+	pred := t.predict(req.Freq)
+	if err := p.inRange(pred); err != nil {
+		// nothing to tune there, whatever the position: no homing, no carrier
+		p.res.Prediction = &pred
+		return "", err
 	}
 	if !t.d.Axis.Trusted() {
 		switch {
 		case t.o.HasHome:
 			if err := p.home(); err != nil {
-				return p.finish("", err)
+				return "", err
 			}
+			pred = t.predict(req.Freq)
 		case t.o.HardStops:
-			return p.finish("", fmt.Errorf("tune: %w (%s)", ErrNeedsHoming, t.d.Axis.Snapshot().Distrust))
+			return "", fmt.Errorf("tune: %w (%s)", ErrHandReference, t.d.Axis.Snapshot().Distrust)
 		case !req.RF:
-			return p.finish("", fmt.Errorf("tune: %w (%s)", ErrNeedsReference, t.d.Axis.Snapshot().Distrust))
+			return "", fmt.Errorf("tune: %w (%s)", ErrNeedsReference, t.d.Axis.Snapshot().Distrust)
 		}
 	}
-	pred := t.predict(req.Freq)
 	p.res.Prediction = &pred
 	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: req.Freq, Pos: pred.Pos})
-	if err := p.inRange(pred); err != nil {
-		return p.finish("", err)
-	}
-	if pred.Trusted && pred.Source != "none" {
-		if err := p.to(Positioning); err != nil {
-			return p.finish("", err)
-		}
-		target := p.target(pred.Pos)
-		if err := p.approach("preposition", target); err != nil {
-			return p.finish("", err)
-		}
-		p.res.Prepositioned, p.res.PrePos = true, target
-		t.emit(Event{Kind: KindPositioned, Pos: float64(target), Freq: req.Freq})
+	if err := p.preposition(pred); err != nil {
+		return "", err
 	}
 	if !req.RF {
-		return p.finish(Positioned, nil)
+		return Positioned, nil
 	}
-	if u, ok := direct(pred); ok {
-		// Go below the fine sweep's start before the carrier goes on (that move needs no RF);
-		// the sweep takes up the play on its way up.
-		_, _, start, _ := p.window(pred.Pos, u, pred.Width, motion.Up)
-		lmin, _ := t.d.Axis.SoftLimits()
-		if err := p.moveThrough("fine", max(start-t.runUp(), lmin)); err != nil {
-			return p.finish("", err)
-		}
+	if err := p.belowSweep(pred); err != nil {
+		return "", err
 	}
 	if err := p.carrierOn(); err != nil {
-		return p.finish("", err)
+		return "", err
 	}
 	var fit dipFit
 	var err error
@@ -80,19 +74,70 @@ func (t *Tuner) Tune(ctx context.Context, req Request) Result {
 		fit, err = p.search(pred)
 	}
 	if err != nil {
-		return p.finish("", err)
+		return "", err
 	}
 	if err := p.settle(fit, pred); err != nil {
-		return p.finish("", err)
+		return "", err
+	}
+	if err := p.endRF(); err != nil {
+		return "", err
 	}
 	p.learn(pred)
-	return p.finish(Tuned, nil)
+	return Tuned, nil
+}
+
+// preposition moves to the map's prediction, with no RF, if the position is trusted and the
+// map (or its prior) knows something.
+func (p *op) preposition(pred Prediction) error {
+	t := p.t
+	if !pred.Trusted || pred.Source == SourceNone {
+		return nil
+	}
+	if err := p.to(Positioning); err != nil {
+		return err
+	}
+	target := p.target(pred.Pos)
+	if err := p.approach("preposition", target); err != nil {
+		return err
+	}
+	p.res.Prepositioned, p.res.PrePos = true, target
+	t.emit(Event{Kind: KindPositioned, Pos: float64(target), Freq: p.res.Freq})
+	return nil
+}
+
+// belowSweep goes below the fine sweep's start before the carrier goes on, when the map is sure
+// enough for the search to begin with the fine sweep (that move needs no RF; the sweep takes up
+// the play on its way up).
+func (p *op) belowSweep(pred Prediction) error {
+	u, ok := direct(pred)
+	if !ok {
+		return nil
+	}
+	_, _, start, _ := p.window(pred.Pos, u, pred.Width, motion.Up)
+	lmin, _ := p.t.d.Axis.SoftLimits()
+	return p.moveThrough("fine", max(start-p.t.runUp(), lmin))
+}
+
+// endRF ends the RF stages once the tune is verified: the carrier is dropped, and the radio
+// must still be on the frequency it was keyed on, or nothing the stages found may be learned.
+func (p *op) endRF() error {
+	if err := p.check(); err != nil {
+		return err
+	}
+	if err := p.carrierOff(); err != nil {
+		return err
+	}
+	if moved, ok := p.g.frequencyMoved(); ok {
+		return fmt.Errorf("%w: the radio went to %v", ErrFrequencyChanged, moved)
+	}
+	return nil
 }
 
 // inRange refuses a frequency whose dip the prediction puts well outside the soft limits:
-// there is nothing to tune there, and no reason to transmit.
+// there is nothing to tune there, and no reason to transmit. The physics prior knows that as
+// well as a learned map, and either knows it whether or not the position is trusted.
 func (p *op) inRange(pred Prediction) error {
-	if pred.Source == "none" || !pred.Trusted {
+	if pred.Source == SourceNone {
 		return nil
 	}
 	lo, hi := p.t.d.Axis.SoftLimits()
@@ -111,17 +156,45 @@ func (p *op) home() error {
 	if err := p.t.d.Axis.Home(p.ctx); err != nil {
 		return fmt.Errorf("home: %w", err)
 	}
-	p.t.surprise = nil
+	p.t.positionConfirmed()
 	return nil
+}
+
+// positionConfirmed notes that the position was found again independently of the map (homing,
+// or the operator's reference): a dip far from the map from now on is the map's error.
+func (t *Tuner) positionConfirmed() {
+	if t.surprise != nil {
+		t.confirmed = true
+	}
 }
 
 // Home runs the homing sequence on its own.
 func (t *Tuner) Home(ctx context.Context) Result {
 	p := t.begin(ctx, 0)
-	if err := p.home(); err != nil {
-		return p.finish("", err)
+	return p.run(func() (Outcome, error) {
+		if err := p.ready(); err != nil {
+			return "", fmt.Errorf("home: %w", err)
+		}
+		if err := p.home(); err != nil {
+			return "", err
+		}
+		return Homed, nil
+	})
+}
+
+// Reference declares the motor to be at pos, as the operator says (for a capacitor with no home
+// switch, after a lost position): the position is trusted from now on. It is refused with a
+// fault latched, and while the motor moves.
+func (t *Tuner) Reference(pos motion.Steps) error {
+	if t.Fault() != nil || t.m.state == Faulted {
+		return fmt.Errorf("tuner: reference: %w: reset first", motion.ErrFault)
 	}
-	return p.finish(Homed, nil)
+	if t.d.Axis.Snapshot().Moving {
+		return fmt.Errorf("tuner: reference: %w", motion.ErrBusy)
+	}
+	t.d.Axis.Reference(pos)
+	t.positionConfirmed()
+	return nil
 }
 
 // target rounds a position and keeps it where an approach can take up the gear play within the
@@ -188,7 +261,7 @@ func (p *op) search(pred Prediction) (dipFit, error) {
 	}
 	lo, hi := p.t.d.Axis.SoftLimits()
 	centre, half := (float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2
-	if pred.Source != "none" && pred.Trusted {
+	if pred.Source != SourceNone && pred.Trusted {
 		if u, ok := direct(pred); ok {
 			f, err := p.refineAround(coarseHit{pos: pred.Pos, uncertainty: u}, w, noise)
 			if err == nil {
@@ -219,20 +292,34 @@ func (p *op) search(pred Prediction) (dipFit, error) {
 
 // refineAround runs the fine sweep around a coarse estimate, following the dip if the sweep
 // shows it lies beyond.
+// A fit that fails or is doubtful is swept again with twice and then four times the readings
+// (more averaging): noise and late readings cost time, not correctness.
 func (p *op) refineAround(c coarseHit, w float64, noise noiseLevel) (dipFit, error) {
+	return p.refineAroundEffort(c, w, noise, 1)
+}
+
+func (p *op) refineAroundEffort(c coarseHit, w float64, noise noiseLevel, effort int) (dipFit, error) {
 	u := c.uncertainty
-	for try := range 3 {
-		f, err := p.refine(c.pos, u, w, noise, motion.Up, true)
+	edges := 0
+	for {
+		f, err := p.refine(c.pos, u, w, noise, motion.Up, true, effort)
 		if err == nil {
 			return f, nil
 		}
 		var edge *edgeError
-		if !errors.As(err, &edge) || try == 2 {
+		switch {
+		case errors.As(err, &edge) && edges < 2:
+			edges++
+			c.pos, u = edge.toward, 2*w+edge.spacing
+		case errors.Is(err, errNoFit) && effort < 4:
+			effort *= 2
+			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: sweeping again with %d× the readings", err, effort)})
+		case errors.Is(err, errNoFit):
+			return dipFit{}, fmt.Errorf("%w: %w", ErrNoDip, err)
+		default:
 			return dipFit{}, err
 		}
-		c.pos, u = edge.toward, 2*w+edge.spacing
 	}
-	return dipFit{}, fmt.Errorf("%w after three sweeps", ErrNoDip)
 }
 
 // edgeError: the fine sweep's deepest point lay at its end, so the dip is further on.
@@ -245,6 +332,19 @@ func (e *edgeError) Error() string {
 	return fmt.Sprintf("the dip lies beyond the sweep, near %.0f", e.toward)
 }
 func (e *edgeError) Unwrap() error { return errNotInWindow }
+
+// averaging is how many readings a scan or sweep must average for a dip to stand clear of the
+// noise off it (scanSigmas standard deviations within maxScanThreshold), and that noise.
+func (n noiseLevel) averaging() (k int, sd float64) {
+	sd = n.offDip()
+	k = int(math.Ceil(math.Pow(scanSigmas*sd/maxScanThreshold, 2)))
+	return min(max(k, 1), maxScanAveraging), sd
+}
+
+// offDip is the noise of one |Γ|² reading off the dip, where |Γ|² is near one: the absolute
+// noise measured, or the relative noise of a log detector there, whichever is the larger (the
+// noise may have been measured on the dip, where a log detector's absolute noise is small).
+func (n noiseLevel) offDip() float64 { return math.Max(n.abs, n.rel) }
 
 // noiseLevel is the measured reading noise.
 type noiseLevel struct {
@@ -301,6 +401,7 @@ func (p *op) measureNoise() (noiseLevel, error) {
 	// six readings can come out alike by chance on a quantised converter: keep a floor
 	nl.rel = math.Max(nl.rel, 0.002)
 	nl.abs = math.Max(nl.abs, 2e-4)
+	p.noise = nl
 	p.t.emit(Event{Kind: KindNoise, Freq: p.res.Freq, Gamma2: m,
 		Text: fmt.Sprintf("reading noise %.2f %% relative, %.4f absolute at |Γ|² %.3f", 100*nl.rel, nl.abs, m)})
 	return nl, nil
@@ -321,16 +422,22 @@ func (p *op) coarse(centre, half, w float64, noise noiseLevel) (coarseHit, error
 		return coarseHit{}, err
 	}
 	spacing := math.Max(w/t.o.ScanDensity, 1)
-	speed := spacing / p.readingTime().Seconds()
 	// A dip must stand clear of the noise: a rise in the absorbed share 1−|Γ|² of eight
-	// standard deviations (off the dip the noise is the absolute noise at |Γ|² near one).
-	thr := math.Max(0.12, 8*math.Max(noise.abs, noise.rel*noise.gamma))
+	// standard deviations (off the dip the noise is the absolute noise at |Γ|² near one). Where
+	// the noise is so high that a single reading could not show even a deep dip that clearly,
+	// the scan slows down and averages k readings for every spacing it moves.
+	k, sd := noise.averaging()
+	thr := math.Max(0.12, scanSigmas*sd/math.Sqrt(float64(k)))
+	speed := spacing / (float64(k) * p.readingTime().Seconds())
+	if k > 1 {
+		t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("noisy readings: scanning with %d readings averaged", k)})
+	}
 	amin, amax := p.t.d.Axis.SoftLimits()
 	slo, shi := math.NaN(), math.NaN() // what has been scanned
 	for {
 		lo, hi := p.clampPos(centre-half), p.clampPos(centre+half)
 		for _, seg := range p.segments(lo, hi, slo, shi) {
-			hit, ok, err := p.scanSegment(seg[0], seg[1], w, speed, thr)
+			hit, ok, err := p.scanSegment(seg[0], seg[1], w, speed, thr, k)
 			if err != nil {
 				return coarseHit{}, err
 			}
@@ -406,7 +513,7 @@ func (p *op) segments(lo, hi, slo, shi float64) [][2]float64 {
 }
 
 // scanSegment moves to from and scans to to, watching for a dip.
-func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, error) {
+func (p *op) scanSegment(from, to, w, speed, thr float64, k int) (coarseHit, bool, error) {
 	t := p.t
 	ax := t.d.Axis
 	dir := motion.Up
@@ -445,29 +552,41 @@ func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, erro
 	aMax, posMax := 0.0, math.NaN()
 	above, lastAbove := 0, math.Inf(-1)
 	base := newMedian(32, p.baseline)
+	avg := newMean(k)
+	spacing := spacingOf(speed, p) * float64(k)
+	lastBase := math.Inf(1)
 	for {
 		s, _, err := p.read("coarse")
 		if err != nil {
 			return coarseHit{}, false, err
 		}
 		if (s.Pos-from)*float64(dir) >= 0 && !p.rejected(upEquiv(s.Pos)) {
-			a := base.value() - s.Gamma2
-			base.add(s.Gamma2)
-			if a >= thr {
-				if math.Abs(s.Pos-lastAbove) > 4*w+spacingOf(speed, p) {
-					above = 0
+			if m := avg.add(s); avg.full() {
+				// The off-dip level is the running median of one mean per reading spacing
+				// travelled (so that it spans the same travel however often the converter
+				// reads), leaving out means well inside a dip: a scan that starts on the dip
+				// would take it for the baseline.
+				if math.Abs(m.Pos-lastBase) >= spacing && m.Gamma2 > 0.5*base.value() {
+					base.add(m.Gamma2)
+					lastBase = m.Pos
 				}
-				above++
-				lastAbove = s.Pos
-			}
-			if a > aMax && (a < thr || above >= 1) {
-				aMax, posMax = a, s.Pos
-			}
-			if above >= 2 && a < aMax/3 && math.Abs(s.Pos-posMax) > 2*w {
-				if err := ax.StopMove(p.ctx); err != nil {
-					return coarseHit{}, false, err
+				a := base.value() - m.Gamma2
+				if a >= thr {
+					if math.Abs(m.Pos-lastAbove) > 4*w+spacingOf(speed, p) {
+						above = 0
+					}
+					above++
+					lastAbove = m.Pos
 				}
-				return coarseHit{pos: upEquiv(posMax)}, true, nil
+				if a > aMax && (a < thr || above >= 1) {
+					aMax, posMax = a, m.Pos
+				}
+				if above >= 2 && a < aMax/3 && math.Abs(m.Pos-posMax) > 2*w {
+					if err := ax.StopMove(p.ctx); err != nil {
+						return coarseHit{}, false, err
+					}
+					return coarseHit{pos: upEquiv(posMax)}, true, nil
+				}
 			}
 		}
 		if _, moving, _ := ax.Poll(); !moving {
@@ -485,6 +604,41 @@ func (p *op) scanSegment(from, to, w, speed, thr float64) (coarseHit, bool, erro
 	}
 	return coarseHit{}, false, nil
 }
+
+// Scan averaging: the most readings a coarse scan averages; the threshold an averaged reading
+// must be able to clear (a tuned loop absorbs most of the power at its dip, so a rise of 0.45
+// in the absorbed share is well inside every dip worth the name); and how many standard
+// deviations of the averaged noise a rise must be to count (five: a false alarm in some 10⁶
+// readings, and a false alarm only costs a fine sweep that finds nothing there).
+const (
+	maxScanAveraging = 16
+	maxScanThreshold = 0.45
+	scanSigmas       = 5
+)
+
+// runningMean averages the last k samples (positions and |Γ|²).
+type runningMean struct {
+	buf []sample
+	n   int
+}
+
+func newMean(k int) *runningMean { return &runningMean{buf: make([]sample, k)} }
+
+func (m *runningMean) add(s sample) sample {
+	m.buf[m.n%len(m.buf)] = s
+	m.n++
+	var out sample
+	k := min(m.n, len(m.buf))
+	for _, v := range m.buf[:k] {
+		out.Pos += v.Pos
+		out.Gamma2 += v.Gamma2
+	}
+	out.Pos /= float64(k)
+	out.Gamma2 /= float64(k)
+	return out
+}
+
+func (m *runningMean) full() bool { return m.n >= len(m.buf) }
 
 // median is a running median of the last few values, seeded with a first guess.
 type median struct {
@@ -543,7 +697,7 @@ func (p *op) window(centre, u, w float64, dir motion.Direction) (lo, hi float64,
 // direct says whether the prediction is good enough to go straight to the fine sweep, and
 // with what uncertainty.
 func direct(pred Prediction) (u float64, ok bool) {
-	if pred.Source == "none" || !pred.Trusted {
+	if pred.Source == SourceNone || !pred.Trusted {
 		return 0, false
 	}
 	u = 3*pred.Sigma + 1
@@ -553,7 +707,7 @@ func direct(pred Prediction) (u float64, ok bool) {
 // refine sweeps slowly through [centre−u−2.5w, centre+u+2.5w] in direction dir, reading on the
 // move, and fits the resonance. The sweep's speed is sized from the measured noise so that the
 // fitted centre reaches Options.CentreNoise.
-func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction, changeState bool) (dipFit, error) {
+func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction, changeState bool, effort int) (dipFit, error) {
 	t := p.t
 	ax := t.d.Axis
 	if changeState {
@@ -582,16 +736,17 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 	sigma := noise.flank() / 0.3
 	target := math.Max(t.o.CentreNoise, 0.008*w)
 	nCore := math.Pow(1.5*w*sigma/target, 2)
-	nCore = math.Min(math.Max(nCore, 10), 80)
+	nCore = math.Min(math.Max(nCore, 10), 80) * float64(effort)
 	spacing := math.Min(math.Max(2*w/nCore, 0.05), w/4)
 	speed := math.Max(spacing/p.readingTime().Seconds(), 5)
 	from := start
 	if dir == motion.Up {
 		st := ax.Snapshot()
-		if st.Play != motion.Up || st.Position > start {
-			// The play must be taken up before the sweep: either a fast run-up leg and a
-			// settled start, or the sweep itself begins a run-up below and its first readings
-			// are dropped, whichever is quicker.
+		if st.Play != motion.Up || st.Position > start || st.Position < start-t.runUp() {
+			// The play must be taken up before the sweep (and a motor far below it must get
+			// there at full speed, not at the sweep's): either a fast run-up leg and a settled
+			// start, or the sweep itself begins a run-up below and its first readings are
+			// dropped, whichever is quicker.
 			lmin, _ := ax.SoftLimits()
 			pre := max(start-t.runUp(), lmin)
 			leg, err := ax.Plan(start-pre, 0)
@@ -612,7 +767,12 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 	if err := ax.Start(end, speed); err != nil {
 		return dipFit{}, err
 	}
+	// The sweep stops once it has clearly passed the dip: judged on a running mean of k
+	// readings where the noise is high, so that a noise spike is not taken for the dip.
 	var samples []sample
+	k, sd := noise.averaging()
+	avg := newMean(k)
+	deep := math.Max(0.3, 6*sd/math.Sqrt(float64(k)))
 	aMax, posMax := 0.0, 0.0
 	for {
 		s, _, err := p.read("fine")
@@ -623,16 +783,18 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 			continue // still taking up the play
 		}
 		samples = append(samples, s)
-		a := 1 - s.Gamma2
-		if a > aMax {
-			aMax, posMax = a, s.Pos
-		}
-		beyond := (s.Pos - posMax) * float64(dir)
-		if aMax > 0.3 && beyond > 2*w && a < 0.2*aMax {
-			if err := ax.StopMove(p.ctx); err != nil {
-				return dipFit{}, err
+		if m := avg.add(s); avg.full() {
+			a := p.baseline - m.Gamma2
+			if a > aMax {
+				aMax, posMax = a, m.Pos
 			}
-			break
+			beyond := (m.Pos - posMax) * float64(dir)
+			if aMax > deep && beyond > 2*w && a < 0.2*aMax {
+				if err := ax.StopMove(p.ctx); err != nil {
+					return dipFit{}, err
+				}
+				break
+			}
 		}
 		if _, moving, _ := ax.Poll(); !moving {
 			break
@@ -660,11 +822,50 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 	if err != nil {
 		return dipFit{}, err
 	}
+	if err := p.judge(fit, samples, w); err != nil {
+		return dipFit{}, err
+	}
 	return fit, nil
 }
 
-// settle makes the final approach to the fitted centre and verifies it, sweeping once more
-// if the verify reading is well above what the fit promised.
+// errDoubtfulFit: a fit the tuner will not act on, let alone learn from.
+var errDoubtfulFit = fmt.Errorf("%w: doubtful", errNoFit)
+
+// judge rejects a fit the tuner will not act on: a dip whose bottom reads an SWR above the
+// target (the loop's resonance would not be tuned there anyway; such a fit was mis-sampled, by
+// late readings on a loaded computer or by noise, or is not the resonance at all), a last-resort
+// fit on fewer than three readings, or a sweep too sparse for its dip. The width is judged by
+// fitDip itself, against the expected one.
+func (p *op) judge(f dipFit, samples []sample, w float64) error {
+	if swr := sense.SWRFromGamma2(math.Max(f.MinGamma2, 0)); !(swr <= p.t.o.TargetSWR) {
+		return fmt.Errorf("%w: %s fit with SWR %.2f at its bottom, above the target %.2f", errDoubtfulFit, f.Method, swr, p.t.o.TargetSWR)
+	}
+	if f.Method == "minimum" && f.N < 3 {
+		return fmt.Errorf("%w: a minimum of %d reading(s)", errDoubtfulFit, f.N)
+	}
+	if gap := medianGap(samples); gap > w/2 {
+		return fmt.Errorf("%w: readings %.1f steps apart on a dip %.1f steps wide", errDoubtfulFit, gap, w)
+	}
+	return nil
+}
+
+// medianGap is the median distance between consecutive samples.
+func medianGap(samples []sample) float64 {
+	if len(samples) < 2 {
+		return math.Inf(1)
+	}
+	gaps := make([]float64, 0, len(samples)-1)
+	for i := 1; i < len(samples); i++ {
+		gaps = append(gaps, math.Abs(samples[i].Pos-samples[i-1].Pos))
+	}
+	sort.Float64s(gaps)
+	return gaps[len(gaps)/2]
+}
+
+// settle makes the final approach to the fitted centre and verifies it. The verified SWR must
+// be within the target and as low as the fitted dip promised, within what the measured noise
+// and a whole step's placement allow; otherwise the dip is swept again with twice the readings
+// and verified with twice as many, and if it still fails the loop is reported not tuned.
 func (p *op) settle(fit dipFit, pred Prediction) error {
 	t := p.t
 	for attempt := 0; ; attempt++ {
@@ -678,8 +879,8 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 		if err := p.to(Verifying); err != nil {
 			return err
 		}
+		n := 3 << attempt
 		g := 0.0
-		const n = 3
 		for range n {
 			s, _, err := p.read("verify")
 			if err != nil {
@@ -687,33 +888,46 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 			}
 			g += s.Gamma2
 		}
-		g /= n
+		g /= float64(n)
 		swr := sense.SWRFromGamma2(g)
-		want := sense.SWRFromGamma2(math.Max(fit.MinGamma2, 0))
-		p.res.SWR = swr
-		p.res.Fit = t.report(fit, pred, p.res.Freq)
-		t.emit(Event{Kind: KindFit, Fit: p.res.Fit, Pos: fit.Centre, Freq: p.res.Freq, SWR: p.res.Fit.MinSWR})
-		if swr <= want*1.1+0.15 || attempt == 1 {
-			if swr > want*1.1+0.15 {
-				t.note(p.res, "verify SWR %.2f stays above the fitted %.2f", swr, want)
-			}
-			return nil
-		}
-		t.note(p.res, "verify SWR %.2f well above the fitted %.2f: sweeping again", swr, want)
-		noise, err := p.measureNoise()
-		if err != nil {
-			return err
-		}
 		w := pred.Width
 		if fit.HalfWidth > 0 {
 			w = fit.HalfWidth
 		}
-		f, err := p.refineAround(coarseHit{pos: fit.Centre, uncertainty: 2 + w}, w, noise)
+		limit := math.Min(t.o.TargetSWR, sense.SWRFromGamma2(p.verifyLimit(fit, w, n)))
+		p.res.SWR = swr
+		p.res.Fit = t.report(fit, pred, p.res.Freq)
+		t.emit(Event{Kind: KindFit, Fit: p.res.Fit, Pos: fit.Centre, Freq: p.res.Freq, SWR: p.res.Fit.MinSWR})
+		if swr <= limit {
+			return nil
+		}
+		if attempt == 1 {
+			return fmt.Errorf("%w: verified SWR %.2f, above %.2f (target %.2f, fitted dip %.2f)",
+				ErrNotTuned, swr, limit, t.o.TargetSWR, p.res.Fit.MinSWR)
+		}
+		t.note(p.res, "verify SWR %.2f above the %.2f the fit allows: sweeping again, more slowly", swr, limit)
+		noise, err := p.measureNoise()
+		if err != nil {
+			return err
+		}
+		f, err := p.refineAroundEffort(coarseHit{pos: fit.Centre, uncertainty: 2 + w}, w, noise, 2)
 		if err != nil {
 			return err
 		}
 		fit = f
 	}
+}
+
+// verifyLimit is the highest mean |Γ|² of n verify readings that still agrees with the fit: its
+// minimum, plus what a placement error of up to misplace steps costs on a dip of half-width w, plus four
+// standard errors of the mean of n readings at that level (a log detector's noise is relative,
+// with a floor), plus a small allowance for the fit's own error.
+func (p *op) verifyLimit(fit dipFit, w float64, n int) float64 {
+	const misplace = 0.75 // steps: rounding to a whole step, and the approach's repeatability
+	g0 := math.Max(fit.MinGamma2, 0)
+	place := (1 - g0) * math.Min(1, (misplace/w)*(misplace/w))
+	sd := p.noise.rel*math.Max(g0, 0.02) + 2e-4
+	return g0 + place + 4*sd/math.Sqrt(float64(n)) + 0.005
 }
 
 // report turns a fit into what the operator sees: the loaded Q and bandwidth follow from the
@@ -730,8 +944,12 @@ func (t *Tuner) report(f dipFit, pred Prediction, freq physic.Frequency) *FitRep
 
 // learn teaches the map the tune just made, unless the dip turned up so far from the
 // prediction that the position itself may have slipped: such a tune is held back until the
-// next one shows which it was. Two surprises in a row with the same offset are lost steps:
-// the axis is re-referenced by that offset (or, with a home switch, marked for homing).
+// next one shows which it was. Two surprises in a row with the same offset are lost steps: with
+// a home switch the axis is marked for homing; a freely turning capacitor is re-referenced by
+// that offset; a capacitor with hard stops and no home switch is never re-referenced by a search
+// (a wrong map would walk the motor into a stop): its position is distrusted until the operator
+// references it. Once the position has been confirmed (homed or referenced by hand) and the
+// surprise still repeats, the map was wrong: the new points replace the ones they contradict.
 func (p *op) learn(pred Prediction) {
 	t := p.t
 	r := p.res
@@ -745,39 +963,65 @@ func (p *op) learn(pred Prediction) {
 		pt.Q = r.Fit.QLoaded
 	}
 	delta := float64(r.Pos) - pred.Pos
-	far := pred.Source == memmap.SourceMap && math.Abs(delta) > math.Max(t.o.SlipLimit*pred.Sigma, 4*pred.Width+4)
-	prev := t.surprise
-	t.surprise = nil
+	learned := pred.Source == memmap.SourceMap || pred.Source == memmap.SourceAnchored
+	far := learned && math.Abs(delta) > math.Max(t.o.SlipLimit*pred.Sigma, 4*pred.Width+4)
+	prev, confirmed := t.surprise, t.confirmed
+	t.surprise, t.confirmed = nil, false
+	again := far && prev != nil && math.Abs(delta-prev.delta) <= 0.2*math.Abs(delta)+2*pred.Width+2
 	switch {
-	case far && prev != nil && math.Abs(delta-prev.delta) <= 0.2*math.Abs(delta)+2*pred.Width+2:
+	case again && confirmed:
+		n := t.d.Map.Forget(func(q memmap.Point) bool { return sameBand(q.Freq, pt.Freq) || sameBand(q.Freq, prev.pt.Freq) })
+		t.note(r, "dips turned up %.0f steps from the map again after the position was confirmed: the map was wrong here; %d contradicted point(s) replaced", delta, n)
+		p.learnPoint(prev.pt)
+		p.learnPoint(pt)
+	case again:
 		shift := motion.Steps(math.Round((delta + prev.delta) / 2))
 		r.Shift = shift
-		if t.o.HasHome {
+		switch {
+		case t.o.HasHome:
 			t.d.Axis.Distrust(fmt.Sprintf("dips found %d steps from the map twice running", shift))
-			t.note(r, "dips turned up %d steps from the map twice running: lost steps; homing before the next tune", shift)
-		} else {
+			t.surprise = &surprise{pt: pt, delta: delta}
+			t.note(r, "dips turned up %d steps from the map twice running: lost steps, or a wrong map; homing before the next tune", shift)
+		case t.o.HardStops:
+			t.d.Axis.Distrust(fmt.Sprintf("dips found %d steps from the map twice running: reference the position by hand", shift))
+			t.surprise = &surprise{pt: pt, delta: delta}
+			t.note(r, "dips turned up %d steps from the map twice running: lost steps, or a wrong map; with hard stops and no home switch the operator must reference the position", shift)
+		default:
 			t.d.Axis.Reference(t.d.Axis.Position() - shift)
 			t.note(r, "dips turned up %d steps from the map twice running: lost steps; position re-referenced by %d", shift, -shift)
 			prev.pt.Pos -= shift
 			pt.Pos -= shift
-			t.learnPoint(prev.pt)
-			t.learnPoint(pt)
+			p.learnPoint(prev.pt)
+			p.learnPoint(pt)
 		}
 	case far:
 		t.surprise = &surprise{pt: pt, delta: delta}
 		t.note(r, "dip %.0f steps from the map's prediction (σ %.1f): held back until the next tune", delta, pred.Sigma)
 	default:
-		if prev != nil {
-			t.learnPoint(prev.pt)
+		if prev != nil && !confirmed {
+			// the surprise was the map's, locally: the position agrees with it again. (After a
+			// homing or a hand reference the held-back point belongs to the old frame.)
+			p.learnPoint(prev.pt)
 		}
-		t.learnPoint(pt)
+		p.learnPoint(pt)
 	}
 }
 
-func (t *Tuner) learnPoint(pt memmap.Point) {
-	if err := t.d.Map.Learn(pt); err != nil && !errors.Is(err, memmap.ErrSuperseded) {
-		t.log.Warn("memory map refused a point", "freq", pt.Freq, "pos", pt.Pos, "err", err)
+// sameBand says whether two frequencies are close enough for one to contradict the other's
+// map point: within 10 % (a wide amateur band is about 7 % wide).
+func sameBand(a, b physic.Frequency) bool {
+	return math.Abs(float64(a)-float64(b)) <= 0.1*float64(b)
+}
+
+func (p *op) learnPoint(pt memmap.Point) {
+	t := p.t
+	if err := t.d.Map.Learn(pt); err != nil {
+		if !errors.Is(err, memmap.ErrSuperseded) {
+			t.log.Warn("memory map refused a point", "freq", pt.Freq, "pos", pt.Pos, "err", err)
+		}
+		return
 	}
+	p.res.Learned++
 }
 
 // reference finds the dip with the position untrusted (a freely turning capacitor with no
@@ -787,11 +1031,13 @@ func (p *op) reference(pred Prediction) (dipFit, error) {
 	if err := p.to(Referencing); err != nil {
 		return dipFit{}, err
 	}
-	if pred.Source != memmap.SourceMap && pred.Source != memmap.SourceAnchored {
+	if pred.Source == SourceNone || t.o.HardStops {
+		// (a capacitor with hard stops is never referenced by a search: Tune refuses earlier)
 		return dipFit{}, fmt.Errorf("re-reference at %v: %w", p.res.Freq, ErrNoPrediction)
 	}
 	ax := t.d.Axis
-	ax.Reference(ax.Position()) // provisional: the search needs to move
+	p.g.allowCarrier(t.o.ReferenceCarrierLimit) // the search may have to cover the whole travel
+	ax.Reference(ax.Position())                 // provisional: the search needs to move
 	ok := false
 	defer func() {
 		if !ok {
@@ -823,35 +1069,113 @@ func (p *op) reference(pred Prediction) (dipFit, error) {
 
 // Calibrate measures the gear backlash at f: it tunes, then sweeps through the dip upward and
 // downward twice each and compares the fitted centres (the shaft lags the motor by half the
-// play either way). The result is installed in the axis and returned for storing.
+// play either way). The result is installed in the axis and returned for storing. Sweeps that
+// disagree (noise, not the gear) are repeated more slowly; if they still disagree the nominal
+// play is kept, with a warning, and the outcome is that of the tune alone.
 func (t *Tuner) Calibrate(ctx context.Context, f physic.Frequency) Result {
 	p := t.begin(ctx, f)
-	if err := t.d.Axis.Fault(); err != nil {
-		return p.finish("", err)
+	return p.run(func() (Outcome, error) { return p.calibrate(f) })
+}
+
+func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
+	t := p.t
+	if f <= 0 {
+		return "", fmt.Errorf("calibrate: frequency %v: want more than 0", f)
 	}
-	if !t.d.Axis.Trusted() {
-		if !t.o.HasHome {
-			return p.finish("", ErrNeedsHoming)
-		}
-		if err := p.home(); err != nil {
-			return p.finish("", err)
-		}
+	if err := p.ready(); err != nil {
+		return "", fmt.Errorf("calibrate: %w", err)
 	}
 	pred := t.predict(f)
 	p.res.Prediction = &pred
-	if err := p.carrierOn(); err != nil {
-		return p.finish("", err)
+	if err := p.inRange(pred); err != nil {
+		return "", err
 	}
-	fit, err := p.search(pred)
+	if !t.d.Axis.Trusted() {
+		switch {
+		case t.o.HasHome:
+			if err := p.home(); err != nil {
+				return "", err
+			}
+			pred = t.predict(f)
+			p.res.Prediction = &pred
+		case t.o.HardStops:
+			return "", fmt.Errorf("calibrate: %w (%s)", ErrHandReference, t.d.Axis.Snapshot().Distrust)
+		}
+	}
+	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: f, Pos: pred.Pos})
+	if err := p.preposition(pred); err != nil {
+		return "", err
+	}
+	if err := p.belowSweep(pred); err != nil {
+		return "", err
+	}
+	if err := p.carrierOn(); err != nil {
+		return "", err
+	}
+	var fit dipFit
+	var err error
+	if !t.d.Axis.Trusted() {
+		fit, err = p.reference(pred)
+	} else {
+		fit, err = p.search(pred)
+	}
 	if err != nil {
-		return p.finish("", err)
+		return "", err
 	}
 	if err := p.to(Calibrating); err != nil {
-		return p.finish("", err)
+		return "", err
 	}
+	outcome := Calibrated
+	var pl play
+	for effort := 1; ; effort *= 2 {
+		if pl, err = p.measurePlay(fit, effort); err == nil {
+			break
+		}
+		if !errors.Is(err, errInconsistentPlay) && !errors.Is(err, errNotInWindow) && !errors.Is(err, errNoFit) {
+			return "", fmt.Errorf("calibrate: %w", err)
+		}
+		if effort >= 2 {
+			t.note(p.res, "backlash not measured (%v): keeping the nominal %d steps", err, t.o.NominalBacklash)
+			outcome = Tuned
+			break
+		}
+		t.note(p.res, "backlash sweeps disagree (%v): measuring again, more slowly", err)
+	}
+	if outcome == Calibrated {
+		t.d.Axis.UseBacklash(pl.b)
+		t.calibrated = true
+		p.res.Backlash = pl.b
+		t.note(p.res, "backlash %d steps (up-sweep dip %.1f, down-sweep %.1f, repeatability ±%.1f)", pl.b, pl.up, pl.down, pl.spread/2)
+		fit.Centre = pl.up
+	}
+	if err := p.settle(fit, pred); err != nil {
+		return "", err
+	}
+	if err := p.endRF(); err != nil {
+		return "", err
+	}
+	p.learn(pred)
+	return outcome, nil
+}
+
+// errInconsistentPlay: the up and down sweeps do not give a play the gear can have.
+var errInconsistentPlay = errors.New("no consistent play")
+
+// play is one backlash measurement.
+type play struct {
+	b        motion.Steps
+	up, down float64 // mean fitted centres
+	spread   float64 // the worse spread of the up or the down centres
+}
+
+// measurePlay sweeps through the dip up and down twice each, with effort times the readings
+// the noise asks for, and judges the result: the down-sweep dip must lie below the up-sweep's by
+// a play within twice the nominal bound, with sweeps that repeat within a quarter of it.
+func (p *op) measurePlay(fit dipFit, effort int) (play, error) {
+	t := p.t
 	noise, err := p.measureNoise()
 	if err != nil {
-		return p.finish("", err)
+		return play{}, err
 	}
 	w := math.Max(fit.HalfWidth, 0.5)
 	u := p.backlashUncertainty() + 2
@@ -862,13 +1186,13 @@ func (t *Tuner) Calibrate(ctx context.Context, f physic.Frequency) Result {
 			if dir == motion.Down {
 				c -= float64(t.o.NominalBacklash) / 2
 			}
-			g, err := p.refine(c, u, w, noise, dir, false)
+			g, err := p.refine(c, u, w, noise, dir, false, effort)
 			if err != nil {
 				way := "upward"
 				if dir == motion.Down {
 					way = "downward"
 				}
-				return p.finish("", fmt.Errorf("calibrate: %s sweep: %w", way, err))
+				return play{}, fmt.Errorf("%s sweep: %w", way, err)
 			}
 			if dir == motion.Up {
 				ups = append(ups, g.Centre)
@@ -877,22 +1201,18 @@ func (t *Tuner) Calibrate(ctx context.Context, f physic.Frequency) Result {
 			}
 		}
 	}
-	up, down := mean(ups), mean(downs)
-	b := motion.Steps(math.Round(up - down))
-	if b < 0 {
-		return p.finish("", fmt.Errorf("calibrate: down-sweep dip %.1f above the up-sweep %.1f: no consistent play", down, up))
+	pl := play{up: mean(ups), down: mean(downs), spread: math.Max(spreadOf(ups), spreadOf(downs))}
+	pl.b = motion.Steps(math.Round(pl.up - pl.down))
+	bound := 2*float64(t.o.NominalBacklash) + 4*w + 4
+	switch {
+	case pl.b < 0:
+		return pl, fmt.Errorf("%w: down-sweep dip %.1f above the up-sweep %.1f", errInconsistentPlay, pl.down, pl.up)
+	case float64(pl.b) > bound:
+		return pl, fmt.Errorf("%w: %d steps, beyond the %0.f the gear can have", errInconsistentPlay, pl.b, bound)
+	case pl.spread > math.Max(2*w+2, 0.25*float64(pl.b)):
+		return pl, fmt.Errorf("%w: sweeps repeat only within %.1f steps", errInconsistentPlay, pl.spread)
 	}
-	spread := math.Max(spreadOf(ups), spreadOf(downs))
-	t.d.Axis.UseBacklash(b)
-	t.calibrated = true
-	p.res.Backlash = b
-	t.note(p.res, "backlash %d steps (up-sweep dip %.1f, down-sweep %.1f, repeatability ±%.1f)", b, up, down, spread/2)
-	fit.Centre = up
-	if err := p.settle(fit, pred); err != nil {
-		return p.finish("", err)
-	}
-	p.learn(pred)
-	return p.finish(Calibrated, nil)
+	return pl, nil
 }
 
 func mean(v []float64) float64 {

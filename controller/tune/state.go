@@ -56,23 +56,27 @@ type Outcome string
 
 // Outcomes.
 const (
-	Tuned          Outcome = "tuned"           // at the fitted best position, verified
-	Positioned     Outcome = "positioned"      // moved to the map's prediction; no RF tune asked for
-	NoCarrier      Outcome = "no-carrier"      // no forward power within the wait
-	CarrierLost    Outcome = "carrier-lost"    // forward power vanished during the tune
-	OverPower      Outcome = "over-power"      // forward power above the tuning limit
-	NoDip          Outcome = "no-dip"          // the whole travel holds no dip for this frequency
-	OutOfRange     Outcome = "out-of-range"    // the capacitor cannot tune this frequency within the soft limits
-	OffFrequency   Outcome = "off-frequency"   // the radio is elsewhere: nothing was keyed
-	Aborted        Outcome = "aborted"         // cancelled (a new frequency, an operator stop)
-	TimedOut       Outcome = "timed-out"       // the tune's time limit passed
-	Fault          Outcome = "fault"           // the axis latched a fault, or the hardware failed
-	NeedsHoming    Outcome = "needs-homing"    // position untrusted; only homing can find it
-	NeedsReference Outcome = "needs-reference" // position untrusted; an RF tune will find it from a dip
-	Homed          Outcome = "homed"
-	Referenced     Outcome = "referenced"
-	Calibrated     Outcome = "calibrated"
-	Reset          Outcome = "reset" // a latched fault was cleared
+	Tuned        Outcome = "tuned"         // at the fitted best position, verified
+	Positioned   Outcome = "positioned"    // moved to the map's prediction; no RF tune asked for
+	NoCarrier    Outcome = "no-carrier"    // no forward power within the wait
+	CarrierLost  Outcome = "carrier-lost"  // forward power vanished during the tune
+	OverPower    Outcome = "over-power"    // forward power above the tuning limit
+	NoDip        Outcome = "no-dip"        // the whole travel holds no dip for this frequency
+	OutOfRange   Outcome = "out-of-range"  // the capacitor cannot tune this frequency within the soft limits
+	OffFrequency Outcome = "off-frequency" // the radio is elsewhere: nothing was keyed
+	Aborted      Outcome = "aborted"       // cancelled (a new frequency, an operator stop)
+	// FrequencyChanged: the radio left the frequency during the RF stages; nothing learned.
+	FrequencyChanged Outcome = "frequency-changed"
+	CarrierLimit     Outcome = "carrier-limit"   // would have needed more carrier time than allowed
+	NotTuned         Outcome = "not-tuned"       // verified SWR too high even after a slower sweep; nothing learned
+	TimedOut         Outcome = "timed-out"       // the tune's time limit passed
+	Fault            Outcome = "fault"           // the axis latched a fault, or the hardware failed
+	NeedsHoming      Outcome = "needs-homing"    // position untrusted; only homing can find it
+	NeedsReference   Outcome = "needs-reference" // position untrusted; an RF tune will find it from a dip
+	Homed            Outcome = "homed"
+	Referenced       Outcome = "referenced"
+	Calibrated       Outcome = "calibrated"
+	Reset            Outcome = "reset" // a latched fault was cleared
 )
 
 // machine tracks the state and reports every change.

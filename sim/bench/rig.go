@@ -2,7 +2,9 @@ package bench
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"math"
 	"time"
 
 	"periph.io/x/conn/v3/physic"
@@ -48,8 +50,18 @@ type RigOptions struct {
 	Tune     tune.Options // Transmit, HasHome, HardStops and NominalBacklash are filled in
 	// NoTransmit: the controller may not key the radio; an operator must give the carrier.
 	NoTransmit bool
-	// WrapSensor, if set, wraps the station's sensor (for fault injection in tests).
-	WrapSensor func(sense.Sensor) sense.Sensor
+	// NoPrior leaves the memory map without the physics prior: the controller knows nothing of
+	// where the dip lies until it has found one.
+	NoPrior bool
+	// WrapSensor, WrapDrive and WrapTransmitter, if set, wrap the station's sensor, drive and
+	// radio as the controller sees them (for fault injection in tests).
+	WrapSensor      func(sense.Sensor) sense.Sensor
+	WrapDrive       func(motion.Drive) motion.Drive
+	WrapTransmitter func(tune.Transmitter) tune.Transmitter
+	// Jitter runs the rig as on a loaded computer: sleeps on the virtual clock wake late and the
+	// drive emits pulses late (see Jitter, LoadedBoard). Zero: off. With RealTime only the
+	// drive's part applies; the wall clock brings its own late wake-ups.
+	Jitter Jitter
 }
 
 // NewRig builds the rig. Without a home switch the axis is referenced where the mechanics
@@ -70,19 +82,37 @@ func NewRig(o RigOptions) (*Rig, error) {
 	}
 	var clk clock.Clock
 	var vclk *vclock.Clock
-	if o.RealTime {
+	switch {
+	case o.RealTime && o.Jitter.Sleep.P > 0:
+		return nil, errors.New("rig: late sleeps need the virtual clock; the wall clock has its own")
+	case o.RealTime:
 		clk = clock.Wall{}
-	} else {
-		vclk = vclock.New(o.Start)
+	default:
+		var err error
+		if vclk, err = vclock.NewJittered(o.Start, o.Jitter.Sleep); err != nil {
+			return nil, fmt.Errorf("rig: %w", err)
+		}
 		clk = vclk
 	}
 	st, err := sim.NewStation(o.Truth, clk)
 	if err != nil {
 		return nil, err
 	}
+	if o.Jitter.Steps.P > 0 {
+		if err := st.Mech.UseStepJitter(o.Jitter.Steps); err != nil {
+			return nil, fmt.Errorf("rig: %w", err)
+		}
+	}
 	axOpts := desc.AxisOptions(o.NominalBacklash)
-	w := &watch{Drive: st.Mech, lo: axOpts.Min, hi: axOpts.Max}
-	ax, err := motion.NewAxis(w, clk, st.Mech.Switches(), axOpts)
+	w := &watch{Drive: st.Mech, mech: st.Mech, lo: axOpts.Min, hi: axOpts.Max,
+		toSteps: desc.Drive.BacklashSteps / 2,
+		play:    math.Max(o.Truth.Drive.BacklashSteps, desc.Drive.BacklashSteps) + o.Truth.Drive.SettleSteps + 1,
+	}
+	var drive motion.Drive = w
+	if o.WrapDrive != nil {
+		drive = o.WrapDrive(w)
+	}
+	ax, err := motion.NewAxis(drive, clk, st.Mech.Switches(), axOpts)
 	if err != nil {
 		return nil, err
 	}
@@ -97,6 +127,9 @@ func NewRig(o RigOptions) (*Rig, error) {
 	mo, err := desc.MapOptions(o.Tolerance)
 	if err != nil {
 		return nil, err
+	}
+	if o.NoPrior {
+		mo.Prior = nil
 	}
 	mm, err := memmap.New(mo)
 	if err != nil {
@@ -126,11 +159,15 @@ func NewRig(o RigOptions) (*Rig, error) {
 		}
 	})
 	sensor := st.Sensor()
+	var transmitter tune.Transmitter = st.Radio
+	if o.WrapTransmitter != nil {
+		transmitter = o.WrapTransmitter(transmitter)
+	}
 	if o.WrapSensor != nil {
 		sensor = o.WrapSensor(sensor)
 	}
 	tn, err := tune.New(tune.Deps{
-		Axis: ax, Sensor: sensor, Clock: clk, Map: mm, Transmitter: st.Radio,
+		Axis: ax, Sensor: sensor, Clock: clk, Map: mm, Transmitter: transmitter,
 		Thermometer: st.Thermometer(), Observer: obs,
 	}, to)
 	if err != nil {
@@ -150,9 +187,29 @@ func (r *Rig) Tune(ctx context.Context, f physic.Frequency, rf bool) (tune.Resul
 // FailDrive makes the drive refuse its next move, as a driver whose bus has failed.
 func (r *Rig) FailDrive() { r.watch.fail = true }
 
-// LimitViolations counts moves that took the motor outside the soft limits, by the rig's own
-// count of pulses.
-func (r *Rig) LimitViolations() int { return r.watch.violations }
+// LimitViolations counts the moves during which the simulator's true shaft went outside the
+// soft limits by more than the gear play and the settling ring account for: the shaft mapped to
+// motor steps as sim.Spec.SoftLimits defines them (plus half the described play), against
+// [Min − tolerance, Max + tolerance], tolerance being the larger of the true and the described
+// play, the ring's amplitude, and one step. Homing legs do not count (see watch).
+func (r *Rig) LimitViolations() int { return r.watch.crossings }
+
+// ControllerLimitViolations counts the moves that took the motor outside the soft limits by the
+// rig's own count of the pulses the drive reports, in the controller's coordinates: what the
+// controller's bookkeeping can see, blind to lost steps. A non-zero count means the axis's own
+// soft-limit logic failed.
+func (r *Rig) ControllerLimitViolations() int { return r.watch.ctrlCrossings }
+
+// Stalls counts the pulses the motor received while the shaft was held at a hard end stop with
+// the play wound up (mech.Mechanics.StalledPulses), homing included.
+func (r *Rig) Stalls() int64 { return r.Station.Mech.StalledPulses() }
+
+// Reference declares the axis to be at p, as an installer or an oracle that sees the shaft may,
+// and keeps the rig's controller-coordinate count in step.
+func (r *Rig) Reference(p motion.Steps) {
+	r.Axis.Reference(p)
+	r.watch.sync(r.Axis.Position())
+}
 
 // Hz converts a physic.Frequency to float64 hertz.
 func Hz(f physic.Frequency) float64 { return float64(f) / float64(physic.Hertz) }

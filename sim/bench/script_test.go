@@ -349,6 +349,7 @@ func (h *harness) station(out *strings.Builder, pos []string, kv map[string]stri
 		NominalBacklash: motion.Steps(s.Drive.BacklashSteps*1.5 + 20),
 		WrapSensor:      func(in sense.Sensor) sense.Sensor { h.faults.sensor = in; return h.faults },
 		NoTransmit:      kv["transmit"] == "false",
+		NoPrior:         kv["no-prior"] == "true",
 	})
 	if err != nil {
 		h.t.Fatal(err)
