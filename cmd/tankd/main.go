@@ -15,21 +15,31 @@ import (
 	"fmt"
 	"io/fs"
 	"log/slog"
+	"math"
 	"os"
 	"os/signal"
 	"path/filepath"
+	"strconv"
+	"strings"
 	"syscall"
+	"time"
 
 	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/statedir"
 	"github.com/tankd/tankd/controller/store"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/radio"
 	"github.com/tankd/tankd/sim/vclock"
 )
+
+// simHardwareFile is where the simulated motor and capacitor keep their state between runs, in
+// the state directory beside the daemon's own files (the simulator's, not the daemon's: the
+// daemon never reads it).
+const simHardwareFile = "simulated-hardware"
 
 func main() {
 	os.Exit(run(os.Args[1:]))
@@ -106,16 +116,24 @@ func run(args []string) int {
 }
 
 // serve builds the station and the controller and runs them until ctx ends.
-func serve(ctx context.Context, o options, log *slog.Logger) error {
+func serve(ctx context.Context, o options, log *slog.Logger) (err error) {
 	spec := sim.DefaultSpec()
 	if o.config != "" {
-		var err error
 		if spec, err = sim.LoadSpec(o.config); err != nil {
 			return err
 		}
 	}
-	if err := os.MkdirAll(o.state, 0o700); err != nil {
-		return fmt.Errorf("state directory: %w", err)
+	dir, err := statedir.Open(o.state, statedir.Options{})
+	if err != nil {
+		return err // names the process holding the directory
+	}
+	defer dir.Close()
+	marker, clean, err := dir.TakeMarker()
+	switch {
+	case err != nil:
+		log.Warn("clean-stop marker unusable: treating the last stop as a crash", "err", err)
+	case !clean:
+		log.Warn("no clean stop recorded (first start, or the daemon was killed): the motor position is not trusted until it is found again")
 	}
 	var clk clock.Clock = clock.Wall{}
 	if o.virtual {
@@ -124,6 +142,15 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 	st, err := sim.NewStation(spec, clk)
 	if err != nil {
 		return err
+	}
+	// The simulated hardware keeps its own state, as a real capacitor stays where it was left.
+	hwPath := filepath.Join(dir.Path(), simHardwareFile)
+	switch err := st.LoadHardware(hwPath); {
+	case err == nil:
+	case errors.Is(err, fs.ErrNotExist):
+		log.Info("simulated hardware: first start, the capacitor stands where the station description leaves it")
+	default:
+		log.Warn("simulated hardware state unreadable: starting it afresh", "err", err)
 	}
 	// The daemon is told what the station description says, with the play as an upper bound
 	// until a calibration measures it.
@@ -134,36 +161,99 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 	if err != nil {
 		return err
 	}
+	stoppedCleanly := false
 	defer func() {
 		if err := ax.Halt(); err != nil {
 			log.Error("halt the motor", "err", err)
+			stoppedCleanly = false
+		}
+		if err := st.SaveHardware(hwPath); err != nil {
+			log.Error("simulated hardware state not saved", "err", err)
+		}
+		if !stoppedCleanly {
+			log.Warn("no clean-stop marker written: the next start will find the position again")
+			return
+		}
+		a := ax.Snapshot()
+		m := statedir.Marker{Position: a.Position, Trusted: a.Trusted && a.Fault == "", At: clk.Now(), Reason: "stopped"}
+		if werr := dir.WriteMarker(m); werr != nil {
+			log.Error("clean-stop marker not written", "err", werr)
+		} else {
+			log.Info("clean stop recorded", "position", m.Position, "trusted", m.Trusted)
 		}
 	}()
 	if err := ax.Enable(ctx); err != nil {
 		return err
 	}
-	if spec.Drive.Home == nil {
-		// A simulated loop with no switch starts where it was left, as installed.
-		ax.Reference(st.Mech.MotorPosition())
+	switch hint, hinted, herr := dir.Hint(); {
+	case clean && marker.Trusted:
+		ax.Reference(marker.Position)
+	case hinted:
+		// Where the motor was after the last operation: a first guess for finding it again
+		// from a dip, never trusted.
+		ax.Reference(hint.Position)
+		ax.Distrust("no clean stop recorded; last known near " + strconv.FormatInt(hint.Position, 10))
+	default:
+		if herr != nil {
+			log.Warn("position hint unreadable", "err", herr)
+		}
+		ax.Distrust("no clean stop recorded")
 	}
 	mo, err := spec.MapOptions(sim.DefaultTolerance)
 	if err != nil {
 		return err
 	}
-	mapPath := filepath.Join(o.state, "loop.map")
-	mm, err := memmap.Load(mapPath, mo)
+	var notices []string
+	mm, err := memmap.Load(dir.MapPath(), mo)
 	switch {
+	case err == nil:
 	case errors.Is(err, store.ErrUsedPrevious):
 		log.Warn("memory map: the last save was damaged; using the copy before it", "err", err)
-	case err != nil:
+	case errors.Is(err, store.ErrCorrupt):
+		aside, aerr := store.SetAside(dir.MapPath(), time.Now())
+		if aerr != nil {
+			return fmt.Errorf("memory map damaged, and could not be set aside: %w (%w)", err, aerr)
+		}
+		n := fmt.Sprintf("the memory map was damaged beyond repair and has been set aside as %s: starting with an empty map", strings.Join(aside, ", "))
+		log.Error("MEMORY MAP LOST: "+n, "err", err)
+		notices = append(notices, n)
+		if mm, err = memmap.New(mo); err != nil {
+			return err
+		}
+	default:
 		return fmt.Errorf("memory map: %w", err)
 	}
-	log.Info("memory map", "path", mapPath, "points", mm.Len())
+	log.Info("memory map", "path", dir.MapPath(), "points", mm.Len())
+	// After every operation: where the motor stands now, for a start after a crash, and the
+	// simulated hardware's state, each written only when it changed (SD cards wear).
+	lastHint, lastHW := int64(math.MinInt64), int64(math.MinInt64)
+	after := func() {
+		a := ax.Snapshot()
+		if a.Moving {
+			return
+		}
+		if a.Position != lastHint {
+			m := statedir.Marker{Position: a.Position, Trusted: a.Trusted && a.Fault == "", At: clk.Now(), Reason: "after an operation"}
+			if err := dir.WriteHint(m); err != nil {
+				log.Warn("position hint not saved", "err", err)
+			} else {
+				lastHint = a.Position
+			}
+		}
+		if p := st.Mech.MotorPosition(); p != lastHW {
+			if err := st.SaveHardware(hwPath); err != nil {
+				log.Warn("simulated hardware state not saved", "err", err)
+			} else {
+				lastHW = p
+			}
+		}
+	}
 	to := spec.TunerOptions(tune.Options{Transmit: true, Logger: log}, nominal)
-	calPath := filepath.Join(o.state, "backlash")
+	calPath := dir.CalibrationPath()
 	svc, err := controller.NewService(tune.Deps{Axis: ax, Sensor: st.Sensor(), Clock: clk, Map: mm,
 		Transmitter: st.Radio, Thermometer: st.Thermometer(), Observer: logEvents(log)},
-		to, controller.Options{AutoTune: o.autoTune, MapPath: mapPath, CalibrationPath: calPath, Logger: log})
+		to, controller.Options{AutoTune: o.autoTune, MapPath: dir.MapPath(), CalibrationPath: calPath, Logger: log,
+			Notices: notices, OnResult: func(tune.Result) { after() }})
 	if err != nil {
 		return err
 	}
@@ -173,6 +263,9 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 		log.Info("backlash calibration", "steps", c.Backlash, "measured", c.At)
 	case errors.Is(err, fs.ErrNotExist):
 		log.Info("no backlash calibration yet: the first tune measures it")
+	case errors.Is(err, store.ErrCorrupt):
+		aside, aerr := store.SetAside(calPath, time.Now())
+		log.Error("backlash calibration damaged: set aside, measuring again", "err", err, "aside", aside, "aside_err", aerr)
 	default:
 		log.Warn("backlash calibration unreadable: measuring again", "err", err)
 	}
@@ -209,17 +302,30 @@ func serve(ctx context.Context, o options, log *slog.Logger) error {
 	if err := svc.Submit(first); err != nil {
 		return err
 	}
+	// SIGHUP clears a latched fault, as an operator's reset (the position stays untrusted).
+	hup := make(chan os.Signal, 1)
+	signal.Notify(hup, syscall.SIGHUP)
+	defer signal.Stop(hup)
 	last := st.Radio.Frequency()
 	for {
 		select {
 		case <-ctx.Done():
 			<-done
 			<-catDone
+			stoppedCleanly = runErr == nil
 			return runErr
+		case <-hup:
+			log.Warn("SIGHUP: resetting a latched fault")
+			if err := svc.Submit(controller.Request{Kind: controller.Reset}); err != nil {
+				log.Error("reset", "err", err)
+			}
 		case ev := <-sub.Events():
+			// Every change of frequency is followed, with the carrier on too: the tuner's own
+			// carrier does not move the VFO, so a change while transmitting is the operator's
+			// (or a logger's), and the tune in progress must end.
 			f := ev.State.Frequency()
-			if f == last || ev.State.TX {
-				continue // the tuner's own carrier, or nothing new
+			if f == last {
+				continue
 			}
 			last = f
 			if err := svc.Submit(controller.Request{Kind: controller.Follow, Freq: f}); err != nil {

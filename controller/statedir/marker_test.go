@@ -169,3 +169,27 @@ func FuzzParseMarker(f *testing.F) {
 		}
 	})
 }
+
+// The position hint survives a crash (it is not taken at start), round-trips, and is absent on a
+// first run.
+func TestHintRoundTrip(t *testing.T) {
+	d, err := Open(t.TempDir(), Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer d.Close()
+	if _, ok, err := d.Hint(); ok || err != nil {
+		t.Fatalf("first run: hint %v, %v", ok, err)
+	}
+	at := time.Date(2026, 12, 2, 9, 0, 0, 0, time.UTC)
+	want := Marker{Position: -4321, Trusted: true, At: at, Reason: "after a tune"}
+	if err := d.WriteHint(want); err != nil {
+		t.Fatal(err)
+	}
+	for range 2 { // reading does not consume it
+		got, ok, err := d.Hint()
+		if !ok || err != nil || got.Position != want.Position || !got.At.Equal(at) || got.Reason != want.Reason {
+			t.Fatalf("hint %+v, %v, %v; want %+v", got, ok, err, want)
+		}
+	}
+}
