@@ -26,53 +26,17 @@ func (t *Tuner) Tune(ctx context.Context, req Request) Result {
 }
 
 func (p *op) tune(req Request) (Outcome, error) {
-	t := p.t
-	if req.Freq <= 0 {
-		return "", fmt.Errorf("tune: frequency %v: want more than 0", req.Freq)
-	}
-	if err := p.ready(); err != nil {
-		return "", fmt.Errorf("tune: %w", err)
-	}
-	pred := t.predict(req.Freq)
-	if err := p.inRange(pred); err != nil {
-		// nothing to tune there, whatever the position: no homing, no carrier
-		p.res.Prediction = &pred
+	pred, err := p.prepare("tune", req.Freq, req.RF)
+	if err != nil {
 		return "", err
 	}
-	if !t.d.Axis.Trusted() {
-		switch {
-		case t.o.HasHome:
-			if err := p.home(); err != nil {
-				return "", err
-			}
-			pred = t.predict(req.Freq)
-		case t.o.HardStops:
-			return "", fmt.Errorf("tune: %w (%s)", ErrHandReference, t.d.Axis.Snapshot().Distrust)
-		case !req.RF:
-			return "", fmt.Errorf("tune: %w (%s)", ErrNeedsReference, t.d.Axis.Snapshot().Distrust)
-		}
-	}
-	p.res.Prediction = &pred
-	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: req.Freq, Pos: pred.Pos})
 	if err := p.preposition(pred); err != nil {
 		return "", err
 	}
 	if !req.RF {
 		return Positioned, nil
 	}
-	if err := p.belowSweep(pred); err != nil {
-		return "", err
-	}
-	if err := p.carrierOn(); err != nil {
-		return "", err
-	}
-	var fit dipFit
-	var err error
-	if !t.d.Axis.Trusted() {
-		fit, err = p.reference(pred)
-	} else {
-		fit, err = p.search(pred)
-	}
+	fit, err := p.findDip(pred)
 	if err != nil {
 		return "", err
 	}
@@ -84,6 +48,58 @@ func (p *op) tune(req Request) (Outcome, error) {
 	}
 	p.learn(pred)
 	return Tuned, nil
+}
+
+// prepare checks an operation at f before anything moves or keys: the frequency, a latched
+// fault, the prediction's range; and, with the position untrusted, homes where there is a home
+// switch or refuses where only the operator can say where the motor is (hard stops, or a
+// freely turning capacitor with no RF to find the dip by). It returns the prediction to work
+// from, also in the result.
+func (p *op) prepare(what string, f physic.Frequency, rf bool) (Prediction, error) {
+	t := p.t
+	if f <= 0 {
+		return Prediction{}, fmt.Errorf("%s: frequency %v: want more than 0", what, f)
+	}
+	if err := p.ready(); err != nil {
+		return Prediction{}, fmt.Errorf("%s: %w", what, err)
+	}
+	pred := t.predict(f)
+	p.res.Prediction = &pred
+	if err := p.inRange(pred); err != nil {
+		// nothing to tune there, whatever the position: no homing, no carrier
+		return pred, err
+	}
+	if !t.d.Axis.Trusted() {
+		switch {
+		case t.o.HasHome:
+			if err := p.home(); err != nil {
+				return pred, err
+			}
+			pred = t.predict(f)
+			p.res.Prediction = &pred
+		case t.o.HardStops:
+			return pred, fmt.Errorf("%s: %w (%s)", what, ErrHandReference, t.d.Axis.Snapshot().Distrust)
+		case !rf:
+			return pred, fmt.Errorf("%s: %w (%s)", what, ErrNeedsReference, t.d.Axis.Snapshot().Distrust)
+		}
+	}
+	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: f, Pos: pred.Pos})
+	return pred, nil
+}
+
+// findDip puts the carrier on and finds the dip: from the prediction with the position trusted,
+// by a search of the whole travel that re-references the position without.
+func (p *op) findDip(pred Prediction) (dipFit, error) {
+	if err := p.belowSweep(pred); err != nil {
+		return dipFit{}, err
+	}
+	if err := p.carrierOn(); err != nil {
+		return dipFit{}, err
+	}
+	if !p.t.d.Axis.Trusted() {
+		return p.reference(pred)
+	}
+	return p.search(pred)
 }
 
 // preposition moves to the map's prediction, with no RF, if the position is trusted and the
@@ -1079,46 +1095,14 @@ func (t *Tuner) Calibrate(ctx context.Context, f physic.Frequency) Result {
 
 func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
 	t := p.t
-	if f <= 0 {
-		return "", fmt.Errorf("calibrate: frequency %v: want more than 0", f)
-	}
-	if err := p.ready(); err != nil {
-		return "", fmt.Errorf("calibrate: %w", err)
-	}
-	pred := t.predict(f)
-	p.res.Prediction = &pred
-	if err := p.inRange(pred); err != nil {
+	pred, err := p.prepare("calibrate", f, true)
+	if err != nil {
 		return "", err
 	}
-	if !t.d.Axis.Trusted() {
-		switch {
-		case t.o.HasHome:
-			if err := p.home(); err != nil {
-				return "", err
-			}
-			pred = t.predict(f)
-			p.res.Prediction = &pred
-		case t.o.HardStops:
-			return "", fmt.Errorf("calibrate: %w (%s)", ErrHandReference, t.d.Axis.Snapshot().Distrust)
-		}
-	}
-	t.emit(Event{Kind: KindPrediction, Prediction: &pred, Freq: f, Pos: pred.Pos})
 	if err := p.preposition(pred); err != nil {
 		return "", err
 	}
-	if err := p.belowSweep(pred); err != nil {
-		return "", err
-	}
-	if err := p.carrierOn(); err != nil {
-		return "", err
-	}
-	var fit dipFit
-	var err error
-	if !t.d.Axis.Trusted() {
-		fit, err = p.reference(pred)
-	} else {
-		fit, err = p.search(pred)
-	}
+	fit, err := p.findDip(pred)
 	if err != nil {
 		return "", err
 	}
