@@ -83,6 +83,9 @@ const (
 	SourceMap      = "map"            // the learned points
 	SourcePrior    = "prior"          // the prior alone: the map is empty
 	SourceAnchored = "anchored-prior" // the prior, shifted to agree with the nearest learned point
+	// SourceNone is for a caller that goes on without a prediction (Predict reported false):
+	// the map itself never gives it.
+	SourceNone = "none"
 )
 
 // Prior predicts the dip from a physics model of the loop, without any learned points. Its

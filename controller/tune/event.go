@@ -63,20 +63,6 @@ type ObserverFunc func(Event)
 // Observe implements Observer.
 func (f ObserverFunc) Observe(e Event) { f(e) }
 
-// Prediction is where the tuner expects the dip before it transmits.
-type Prediction struct {
-	Pos     float64 // motor position, steps
-	Sigma   float64 // one-sigma uncertainty, steps
-	Slope   float64 // steps per Hz
-	Width   float64 // expected half-power half-width of the dip, steps
-	Q       float64 // the loaded Q the width was computed from
-	Source  string  // memmap.SourceMap, SourcePrior, SourceAnchored, or SourceNone
-	Trusted bool    // the axis position is trusted
-}
-
-// SourceNone is a Prediction's Source when neither the map nor a prior knows anything.
-const SourceNone = "none"
-
 // FitReport is what the fine sweep's curve fit found.
 type FitReport struct {
 	Method    string  // "rational", "lorentzian" or "minimum"

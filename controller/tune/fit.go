@@ -61,17 +61,17 @@ var errNoFit = errors.New("no resonance curve fits the samples")
 // half-width. The fit is linear in (a, b, c, e, f) once multiplied out; the
 // Sanathanan–Koerner iteration reweights by the previous denominator so that the weighted
 // linear problem converges to the true least-squares fit, with weights from the noise model.
-func fitDip(samples []sample, expWidth, relNoise float64) (dipFit, error) {
-	if len(samples) < 8 {
+func fitDip(k *fitParams, samples []sample, expWidth, relNoise float64) (dipFit, error) {
+	if len(samples) < k.minSamples {
 		return dipFit{}, fmt.Errorf("%w: %d samples", errNoFit, len(samples))
 	}
-	if fr, err := fitRational(samples, expWidth, relNoise); err == nil {
+	if fr, err := fitRational(k, samples, expWidth, relNoise); err == nil {
 		return fr, nil
 	}
-	if fl, err := fitLorentzian(samples, expWidth); err == nil {
+	if fl, err := fitLorentzian(k, samples, expWidth); err == nil {
 		return fl, nil
 	}
-	return fitMinimum(samples), nil
+	return fitMinimum(k, samples), nil
 }
 
 func minSample(samples []sample) int {
@@ -84,16 +84,16 @@ func minSample(samples []sample) int {
 	return best
 }
 
-func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
+func fitRational(k *fitParams, samples []sample, expWidth, relNoise float64) (dipFit, error) {
 	ref := samples[minSample(samples)].Pos
-	scale := math.Max(expWidth, 0.5)
+	scale := math.Max(expWidth, k.minScale)
 	n := len(samples)
 	xs := make([]float64, n)
 	for i, s := range samples {
 		xs[i] = (s.Pos - ref) / scale
 	}
-	relNoise = math.Max(relNoise, 0.002)
-	absNoise := 1e-4
+	relNoise = math.Max(relNoise, k.relFloor)
+	absNoise := k.absNoise
 	model := make([]float64, n) // G from the last fit (the measured values to begin with)
 	prevD := make([]float64, n)
 	for i, s := range samples {
@@ -106,7 +106,7 @@ func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
 	}
 	b := make([]float64, n)
 	var th []float64
-	for range 12 {
+	for range k.iterations {
 		for i, s := range samples {
 			x, g := xs[i], s.Gamma2
 			w := 1 / (prevD[i] * (relNoise*math.Max(model[i], 0) + absNoise))
@@ -117,7 +117,7 @@ func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
 		if err != nil {
 			return dipFit{}, err
 		}
-		converged := th != nil && math.Abs(t[3]-th[3]) < 1e-9 && math.Abs(t[4]-th[4]) < 1e-9
+		converged := th != nil && math.Abs(t[3]-th[3]) < k.converged && math.Abs(t[4]-th[4]) < k.converged
 		th = t
 		if th[4]-th[3]*th[3]/4 <= 0 {
 			return dipFit{}, fmt.Errorf("%w: denominator has real roots", errNoFit)
@@ -130,14 +130,14 @@ func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
 			d := x*x + th[3]*x + th[4]
 			prevD[i] = d
 			model[i] = (th[0] + th[1]*x + th[2]*x*x) / d
-			if model[i] < 0.05 {
+			if model[i] < k.nearGamma2 {
 				r := s.Gamma2 - model[i]
 				nearSq += r * r
 				nearN++
 			}
 		}
-		if nearN >= 3 {
-			absNoise = math.Max(1e-5, math.Sqrt(nearSq/float64(nearN))/2)
+		if nearN >= k.nearReadings {
+			absNoise = math.Max(k.minAbsNoise, math.Sqrt(nearSq/float64(nearN))*k.residualShare)
 		}
 		if converged {
 			break
@@ -159,7 +159,7 @@ func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
 		chi += r * r
 	}
 	f.Chi2 = chi / float64(max(n-5, 1))
-	if err := f.plausible(samples, expWidth, th[2]); err != nil {
+	if err := f.plausible(k, samples, expWidth, th[2]); err != nil {
 		return dipFit{}, err
 	}
 	return f, nil
@@ -168,7 +168,7 @@ func fitRational(samples []sample, expWidth, relNoise float64) (dipFit, error) {
 // plausible rejects fits that the samples do not support: a centre outside the swept span,
 // too few samples on either side of it, a width far from any the loop can have, or a far-off
 // |Γ|² that is not near total reflection.
-func (f dipFit) plausible(samples []sample, expWidth, far float64) error {
+func (f dipFit) plausible(k *fitParams, samples []sample, expWidth, far float64) error {
 	lo, hi := samples[0].Pos, samples[0].Pos
 	for _, s := range samples {
 		lo, hi = math.Min(lo, s.Pos), math.Max(hi, s.Pos)
@@ -176,13 +176,13 @@ func (f dipFit) plausible(samples []sample, expWidth, far float64) error {
 	if f.Centre < lo || f.Centre > hi {
 		return fmt.Errorf("%w: centre %.1f outside the swept %.1f–%.1f", errNoFit, f.Centre, lo, hi)
 	}
-	if f.HalfWidth < 0.15*expWidth || f.HalfWidth > 6*expWidth {
+	if f.HalfWidth < k.minWidthRatio*expWidth || f.HalfWidth > k.maxWidthRatio*expWidth {
 		return fmt.Errorf("%w: half-width %.2f steps against %.2f expected", errNoFit, f.HalfWidth, expWidth)
 	}
 	below, above := 0, 0
 	for _, s := range samples {
 		d := s.Pos - f.Centre
-		if math.Abs(d) <= 2.5*f.HalfWidth {
+		if math.Abs(d) <= k.sideWidths*f.HalfWidth {
 			if d < 0 {
 				below++
 			} else {
@@ -190,13 +190,13 @@ func (f dipFit) plausible(samples []sample, expWidth, far float64) error {
 			}
 		}
 	}
-	if below < 2 || above < 2 {
+	if below < k.sideReadings || above < k.sideReadings {
 		return fmt.Errorf("%w: %d samples below and %d above the centre", errNoFit, below, above)
 	}
-	if far < 0.3 || far > 1.6 {
+	if far < k.minFar || far > k.maxFar {
 		return fmt.Errorf("%w: far-off |Γ|² %.2f", errNoFit, far)
 	}
-	if f.MinGamma2 < -0.02 || f.MinGamma2 > 0.9 {
+	if f.MinGamma2 < k.minBottom || f.MinGamma2 > k.maxBottom {
 		return fmt.Errorf("%w: |Γ|² %.3f at the centre", errNoFit, f.MinGamma2)
 	}
 	return nil
@@ -205,21 +205,21 @@ func (f dipFit) plausible(samples []sample, expWidth, far float64) error {
 // fitLorentzian is the fallback: the absorbed share 1 − |Γ|² of a resonance is a Lorentzian in
 // position, so its reciprocal is a parabola. Only samples in the upper part of the peak are
 // used, weighted by the square of the absorbed share (the reciprocal's error grows as 1/A²).
-func fitLorentzian(samples []sample, expWidth float64) (dipFit, error) {
+func fitLorentzian(k *fitParams, samples []sample, expWidth float64) (dipFit, error) {
 	aMax := 0.0
 	for _, s := range samples {
 		aMax = math.Max(aMax, 1-s.Gamma2)
 	}
-	if aMax < 0.2 {
-		return dipFit{}, fmt.Errorf("%w: no dip deeper than 20 %%", errNoFit)
+	if aMax < k.minDepth {
+		return dipFit{}, fmt.Errorf("%w: no dip deeper than %.0f %%", errNoFit, 100*k.minDepth)
 	}
 	ref := samples[minSample(samples)].Pos
-	scale := math.Max(expWidth, 0.5)
+	scale := math.Max(expWidth, k.minScale)
 	var a [][]float64
 	var b []float64
 	for _, s := range samples {
 		ab := 1 - s.Gamma2
-		if ab < 0.3*aMax {
+		if ab < k.peakShare*aMax {
 			continue
 		}
 		x := (s.Pos - ref) / scale
@@ -241,21 +241,21 @@ func fitLorentzian(samples []sample, expWidth float64) (dipFit, error) {
 	}
 	f := dipFit{Method: "lorentzian", Centre: ref + x0*scale, HalfWidth: math.Sqrt(peak/th[2]) * scale,
 		MinGamma2: 1 - 1/peak, N: len(a), curve: curve{method: "lorentzian", ref: ref, scale: scale, c: th}}
-	if err := f.plausible(samples, expWidth, 1); err != nil {
+	if err := f.plausible(k, samples, expWidth, 1); err != nil {
 		return dipFit{}, err
 	}
 	return f, nil
 }
 
-// fitMinimum is the last resort: the lowest reading, averaged with the readings within a
-// step of it.
-func fitMinimum(samples []sample) dipFit {
+// fitMinimum is the last resort: the lowest reading, averaged with the readings within
+// fitParams.minimumSpan steps of it.
+func fitMinimum(k *fitParams, samples []sample) dipFit {
 	s := append([]sample(nil), samples...)
 	sort.Slice(s, func(i, j int) bool { return s[i].Pos < s[j].Pos })
 	best := minSample(s)
 	sum, sw, g := 0.0, 0.0, 0.0
 	for _, v := range s {
-		if math.Abs(v.Pos-s[best].Pos) <= 1 {
+		if math.Abs(v.Pos-s[best].Pos) <= k.minimumSpan {
 			sum += v.Pos
 			g += v.Gamma2
 			sw++

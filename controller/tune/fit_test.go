@@ -27,6 +27,7 @@ func synthDip(r *rand.Rand, p0, halfWidth, ratio, leak, phase, relNoise, spacing
 }
 
 func TestFitFindsTheResonanceNotTheMeasuredMinimum(t *testing.T) {
+	k := defaultParams().fit
 	// With 20 dB directivity (common practice for a cheap coupler) the measured minimum moves
 	// off the resonance by up to 2ε·sinφ in y (here about a fifth of the half-power half-width);
 	// the fitted centre must not.
@@ -37,7 +38,7 @@ func TestFitFindsTheResonanceNotTheMeasuredMinimum(t *testing.T) {
 		p0 := 1000 + r.Float64()
 		w := 8 + 4*r.Float64()
 		ratio := 0.8 + 0.5*r.Float64()
-		f, err := fitDip(synthDip(r, p0, w, ratio, 0.1, r.Float64()*2*math.Pi, 0.01, 0.5), 10, 0.01)
+		f, err := fitDip(&k, synthDip(r, p0, w, ratio, 0.1, r.Float64()*2*math.Pi, 0.01, 0.5), 10, 0.01)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -45,7 +46,7 @@ func TestFitFindsTheResonanceNotTheMeasuredMinimum(t *testing.T) {
 			t.Fatalf("fell back to %s", f.Method)
 		}
 		fitErr = append(fitErr, math.Abs(f.Centre-p0)/w)
-		m := fitMinimum(synthDip(r, p0, w, ratio, 0.1, r.Float64()*2*math.Pi, 0.01, 0.5))
+		m := fitMinimum(&k, synthDip(r, p0, w, ratio, 0.1, r.Float64()*2*math.Pi, 0.01, 0.5))
 		minErr = append(minErr, math.Abs(m.Centre-p0)/w)
 	}
 	fit95, min95 := quantile(fitErr, 0.95), quantile(minErr, 0.95)
@@ -59,10 +60,11 @@ func TestFitFindsTheResonanceNotTheMeasuredMinimum(t *testing.T) {
 }
 
 func TestFitWidthGivesQ(t *testing.T) {
+	k := defaultParams().fit
 	r := rand.New(rand.NewPCG(5, 6))
 	for range 50 {
 		w := 5 + 20*r.Float64()
-		f, err := fitDip(synthDip(r, 500, w, 1, 0.03, r.Float64()*6, 0.02, w/8), w*(0.7+0.6*r.Float64()), 0.02)
+		f, err := fitDip(&k, synthDip(r, 500, w, 1, 0.03, r.Float64()*6, 0.02, w/8), w*(0.7+0.6*r.Float64()), 0.02)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -76,13 +78,14 @@ func TestFitWidthGivesQ(t *testing.T) {
 }
 
 func TestFitNoisyData(t *testing.T) {
+	k := defaultParams().fit
 	// Noisier readings (10 % rms on |Γ|², e.g. a diode detector near its floor) still give the
 	// centre to a tenth of the half-width in 95 % of sweeps.
 	r := rand.New(rand.NewPCG(7, 8))
 	var errs []float64
 	for range 200 {
 		p0 := 200 + r.Float64()
-		f, err := fitDip(synthDip(r, p0, 6, 1.1, 0.04, r.Float64()*6, 0.10, 0.5), 6, 0.10)
+		f, err := fitDip(&k, synthDip(r, p0, 6, 1.1, 0.04, r.Float64()*6, 0.10, 0.5), 6, 0.10)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -94,6 +97,7 @@ func TestFitNoisyData(t *testing.T) {
 }
 
 func TestFitRejectsWhatIsNotADip(t *testing.T) {
+	k := defaultParams().fit
 	r := rand.New(rand.NewPCG(9, 10))
 	// A sweep that only caught one flank of the dip: the fit must not invent a centre inside
 	// the samples; the answer is the flank's lowest end.
@@ -104,7 +108,7 @@ func TestFitRejectsWhatIsNotADip(t *testing.T) {
 			half = append(half, s)
 		}
 	}
-	f, err := fitDip(half, 10, 0.01)
+	f, err := fitDip(&k, half, 10, 0.01)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -116,10 +120,10 @@ func TestFitRejectsWhatIsNotADip(t *testing.T) {
 	for i := range 30 {
 		flat = append(flat, sample{Pos: float64(i), Gamma2: 1 - 0.001*r.Float64()})
 	}
-	if f, _ := fitDip(flat, 5, 0.01); f.Method != "minimum" {
+	if f, _ := fitDip(&k, flat, 5, 0.01); f.Method != "minimum" {
 		t.Errorf("flat data fitted as %s", f.Method)
 	}
-	if _, err := fitDip(flat[:5], 5, 0.01); err == nil {
+	if _, err := fitDip(&k, flat[:5], 5, 0.01); err == nil {
 		t.Error("five samples accepted")
 	}
 }
@@ -131,9 +135,10 @@ func quantile(v []float64, q float64) float64 {
 }
 
 func TestFitCurveReproducesTheData(t *testing.T) {
+	k := defaultParams().fit
 	r := rand.New(rand.NewPCG(11, 12))
 	data := synthDip(r, 300, 10, 1.1, 0.03, 1, 0, 0.5) // noiseless
-	f, err := fitDip(data, 10, 0.01)
+	f, err := fitDip(&k, data, 10, 0.01)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -142,7 +147,7 @@ func TestFitCurveReproducesTheData(t *testing.T) {
 			t.Fatalf("curve at %.1f = %g, data %g", s.Pos, got, s.Gamma2)
 		}
 	}
-	if !math.IsNaN(fitMinimum(data).curve.Gamma2At(300)) {
+	if !math.IsNaN(fitMinimum(&k, data).curve.Gamma2At(300)) {
 		t.Error("a minimum has no curve")
 	}
 }

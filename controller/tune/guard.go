@@ -91,7 +91,7 @@ func (g *guard) breach() error {
 		return ErrCarrierLimit
 	}
 	if g.armed {
-		if got, ok := g.t.radioFrequency(); ok && absFreq(got-g.freq) > offFrequency {
+		if got, ok := g.t.radioFrequency(); ok && absFreq(got-g.freq) > g.t.par.rf.offFrequency {
 			g.moved = got
 			return ErrFrequencyChanged
 		}

@@ -22,7 +22,7 @@ func (p *op) carrierOn() error {
 	}
 	// Never key on a frequency other than the one being tuned: the dip found would be the
 	// wrong one, and the carrier somewhere it was not asked for.
-	if got, ok := t.radioFrequency(); ok && absFreq(got-p.res.Freq) > offFrequency {
+	if got, ok := t.radioFrequency(); ok && absFreq(got-p.res.Freq) > t.par.rf.offFrequency {
 		return fmt.Errorf("%w: the radio is on %v, the tune is for %v", ErrOffFrequency, got, p.res.Freq)
 	}
 	p.g.arm()
@@ -58,15 +58,11 @@ func (p *op) carrierOn() error {
 		if !t.d.Clock.Now().Before(until) {
 			return fmt.Errorf("%w within %v (forward %v, need %v)", ErrNoCarrier, t.o.CarrierWait, r.Forward, t.o.MinForward)
 		}
-		if err := t.d.Clock.Sleep(p.ctx, 20*time.Millisecond); err != nil {
+		if err := t.d.Clock.Sleep(p.ctx, t.par.rf.carrierPoll); err != nil {
 			return err
 		}
 	}
 }
-
-// offFrequency is how far the radio may be from the tune's frequency: well inside the loop's
-// bandwidth on any band.
-const offFrequency = 100 * physic.Hertz
 
 func absFreq(f physic.Frequency) physic.Frequency {
 	if f < 0 {
@@ -74,13 +70,6 @@ func absFreq(f physic.Frequency) physic.Frequency {
 	}
 	return f
 }
-
-// Unkeying: how long one attempt may take, how many attempts, and the pause between them.
-const (
-	unkeyTimeout  = 2 * time.Second
-	unkeyAttempts = 3
-	unkeyPause    = 100 * time.Millisecond
-)
 
 // carrierOff ends the RF stages: it drops the tune carrier if the tuner keyed (or tried to key)
 // it, and books the RF time. It runs however the operation ends, so it does not honour
@@ -94,29 +83,30 @@ func (p *op) carrierOff() error {
 		return nil
 	}
 	quiet := context.WithoutCancel(p.ctx)
+	k := &t.par.rf
 	var err error
-	for attempt := 1; attempt <= unkeyAttempts; attempt++ {
-		ctx, cancel := context.WithTimeout(quiet, unkeyTimeout)
+	for attempt := 1; attempt <= k.unkeyAttempts; attempt++ {
+		ctx, cancel := context.WithTimeout(quiet, k.unkeyTimeout)
 		err = t.d.Transmitter.Unkey(ctx)
 		cancel()
 		if err == nil {
 			p.keyed = false
 			return nil
 		}
-		t.log.Error("could not drop the tune carrier", "attempt", attempt, "of", unkeyAttempts, "err", err)
-		if attempt < unkeyAttempts {
-			_ = t.d.Clock.Sleep(quiet, unkeyPause)
+		t.log.Error("could not drop the tune carrier", "attempt", attempt, "of", k.unkeyAttempts, "err", err)
+		if attempt < k.unkeyAttempts {
+			_ = t.d.Clock.Sleep(quiet, k.unkeyPause)
 		}
 	}
 	p.keyed = false // nothing more this operation can do; the latch keeps everything else off
-	err = fmt.Errorf("%w after %d attempts: %w", ErrUnkeyFailed, unkeyAttempts, err)
+	err = fmt.Errorf("%w after %d attempts: %w", ErrUnkeyFailed, k.unkeyAttempts, err)
 	t.log.Error("THE TUNE CARRIER MAY STILL BE ON: transmitting withdrawn until a reset; check the radio", "err", err)
 	t.Latch(err)
 	return err
 }
 
-// read takes one reading with the carrier checks: too much forward power aborts at once,
-// three readings in a row without a carrier abort as a lost carrier. The reading's position is
+// read takes one reading with the carrier checks: too much forward power aborts at once, a
+// few readings in a row without a carrier abort as a lost carrier. The reading's position is
 // where the motor was when the reflected channel was sampled.
 func (p *op) read(stage string) (sample, sense.Reading, error) {
 	t := p.t
@@ -141,7 +131,7 @@ func (p *op) read(stage string) (sample, sense.Reading, error) {
 	}
 	if r.Forward < t.o.MinForward {
 		p.lost++
-		if p.lost >= 3 {
+		if p.lost >= t.par.rf.lostReadings {
 			return sample{}, r, fmt.Errorf("%w: forward %v", ErrCarrierLost, r.Forward)
 		}
 	} else {
@@ -162,7 +152,7 @@ func (p *op) read(stage string) (sample, sense.Reading, error) {
 func (p *op) readingTime() time.Duration {
 	n := min(p.nRead, len(p.readDurs))
 	if n == 0 {
-		return 3 * time.Millisecond
+		return p.t.par.rf.readingGuess
 	}
 	d := slices.Clone(p.readDurs[:n])
 	slices.Sort(d)

@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
-	"math"
 	"runtime/debug"
 	"time"
 
@@ -251,6 +250,7 @@ var (
 type Tuner struct {
 	d        Deps
 	o        Options
+	par      params
 	log      *slog.Logger
 	m        machine
 	surprise *surprise        // the last tune's dip was far from the map's prediction
@@ -263,13 +263,6 @@ type Tuner struct {
 	// confirmed: the position was found again (homed, or referenced by the operator) since the
 	// last surprise, so a surprise that repeats now is the map's error, not the position's.
 	confirmed bool
-}
-
-// surprise remembers a dip found far from where the map put it, until the next tune shows
-// whether the position slipped (the same offset again) or the map was wrong.
-type surprise struct {
-	pt    memmap.Point
-	delta float64
 }
 
 // New checks the resources and options.
@@ -289,7 +282,7 @@ func New(d Deps, o Options) (*Tuner, error) {
 			d.Frequency = fs
 		}
 	}
-	t := &Tuner{d: d, o: o, log: o.Logger.With("component", "tuner")}
+	t := &Tuner{d: d, o: o, par: defaultParams(), log: o.Logger.With("component", "tuner")}
 	t.m = machine{state: Idle, emit: t.stateChanged}
 	return t, nil
 }
@@ -369,7 +362,7 @@ type op struct {
 	rejects [][2]float64 // spans where a coarse hit proved false
 	// baseline is the |Γ|² the coupler reads off the dip (1 but for its leakage)
 	baseline float64
-	readDurs [16]time.Duration // the latest readings' durations, for readingTime
+	readDurs [readingWindow]time.Duration // the latest readings' durations, for readingTime
 	nRead    int
 	noise    noiseLevel // the latest measured reading noise
 	done     bool       // finish has run
@@ -525,7 +518,7 @@ func (p *op) to(s State) error { return p.t.m.to(s) }
 // stays latched while that still fails. The position stays untrusted.
 func (t *Tuner) Reset() error {
 	if errors.Is(t.fault, ErrUnkeyFailed) && t.d.Transmitter != nil {
-		ctx, cancel := context.WithTimeout(context.Background(), unkeyTimeout)
+		ctx, cancel := context.WithTimeout(context.Background(), t.par.rf.unkeyTimeout)
 		err := t.d.Transmitter.Unkey(ctx)
 		cancel()
 		if err != nil {
@@ -571,24 +564,4 @@ func (t *Tuner) temperature() (*physic.Temperature, bool) {
 		return nil, false
 	}
 	return &v, true
-}
-
-// predict asks the map where the dip is and how wide it should be.
-func (t *Tuner) predict(f physic.Frequency) Prediction {
-	temp, _ := t.temperature()
-	p := Prediction{Source: SourceNone, Trusted: t.d.Axis.Trusted(), Q: t.o.DefaultQ, Width: t.o.FallbackWidth}
-	mp, ok := t.d.Map.Predict(f, t.d.Clock.Now(), temp)
-	if !ok {
-		return p
-	}
-	p.Pos, p.Sigma, p.Slope, p.Source = mp.Pos, mp.Sigma, mp.Slope, mp.Source
-	if mp.Q > 0 {
-		p.Q = mp.Q
-	}
-	if mp.Slope != 0 {
-		fHz := float64(f) / float64(physic.Hertz)
-		p.Width = math.Abs(mp.Slope) * fHz / (2 * p.Q)
-	}
-	p.Width = math.Max(p.Width, 0.5)
-	return p
 }
