@@ -30,7 +30,9 @@ func (p *op) measurePlay(fit dipFit, effort int) (play, error) {
 		return play{}, err
 	}
 	w := math.Max(fit.HalfWidth, t.par.motion.minWidth)
-	u := p.backlashUncertainty() + k.slack
+	// A measurement assumes nothing of an earlier one (the play may have grown with wear): the
+	// down sweeps cover the whole nominal bound, calibrated or not.
+	u := float64(t.o.NominalBacklash)*t.par.motion.assumedPlay + k.slack
 	var ups, downs []float64
 	for range k.sweeps {
 		for _, dir := range []motion.Direction{motion.Up, motion.Down} {

@@ -52,7 +52,7 @@ const (
 	// readOn: go on reading for as long as the motor moves.
 	readOn verdict = iota
 	// readAgain: the reading came before the sweep proper (the gear play still being taken
-	// up): read again at once.
+	// up) and is not the sweep's; read on (a motor that stopped short ends the sweep too).
 	readAgain
 	// stopNow: the sweep has seen what it came for: stop the motor.
 	stopNow
@@ -80,10 +80,7 @@ func (p *op) sweepRead(stage string, from, to motion.Steps, speed float64, j swe
 		if err != nil {
 			return false, err
 		}
-		switch j.take(s) {
-		case readAgain:
-			continue
-		case stopNow:
+		if j.take(s) == stopNow {
 			return true, ax.StopMove(p.ctx)
 		}
 		if _, moving, _ := ax.Poll(); !moving {

@@ -79,7 +79,11 @@ func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
 			return "", fmt.Errorf("calibrate: %w", err)
 		}
 		if effort >= t.par.play.maxEffort {
-			t.note(p.res, "backlash not measured (%v): keeping the nominal %d steps", err, t.o.NominalBacklash)
+			if t.calibrated {
+				t.note(p.res, "backlash not measured (%v): keeping the %d steps measured before", err, t.d.Axis.Snapshot().Backlash)
+			} else {
+				t.note(p.res, "backlash not measured (%v): keeping the nominal %d steps", err, t.o.NominalBacklash)
+			}
 			outcome = Tuned
 			break
 		}

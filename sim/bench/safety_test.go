@@ -449,9 +449,9 @@ func TestOutOfRangeRefusedWithoutCarrier(t *testing.T) {
 // 0.5 dB (12.5 mV on a 25 mV/dB log detector).
 func noisyStation(seed uint64) sim.Spec {
 	s := sim.DefaultSpec()
-	s.Seed = seed
-	s.Coupler.DirectivityDB = 18
-	s.Coupler.ADCNoiseMV = 12.5
+	s.Simulator.Seed = seed
+	s.Simulator.Coupler.DirectivityDB = 18
+	s.Simulator.Coupler.ADCNoiseMV = 12.5
 	return s
 }
 
@@ -545,7 +545,7 @@ func TestSafetyProperties(t *testing.T) {
 	rapid.Check(t, func(rt *rapid.T) {
 		name := rapid.SampledFrom(names).Draw(rt, "station")
 		spec := stations[name]
-		spec.Seed = rapid.Uint64Range(1, 1000).Draw(rt, "seed")
+		spec.Simulator.Seed = rapid.Uint64Range(1, 1000).Draw(rt, "seed")
 		_, in := safetyRig(rt, spec, tune.Options{})
 		steps := rapid.IntRange(1, 6).Draw(rt, "steps")
 		for range steps {
@@ -666,6 +666,29 @@ func TestInconsistentCalibrationFallsBackToNominal(t *testing.T) {
 	}
 	if !fell {
 		t.Errorf("no warning among the notes %q", res.Notes)
+	}
+	in.check(t)
+}
+
+// A second calibration measures afresh: it does not assume the first one's play (the gear may
+// have worn), and finds the play again when the nominal bound is far above it.
+func TestSecondCalibrationMeasuresAgain(t *testing.T) {
+	s := sim.DefaultSpec()
+	s.Drive.BacklashSteps = 20
+	in := &injector{}
+	o := RigOptions{Truth: s, NominalBacklash: 200}
+	in.install(&o)
+	r, err := NewRig(o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	in.r = r
+	for i := range 2 {
+		res := in.run("calibrate", f3750)
+		// the measurement is good to a few steps (the fit's repeatability)
+		if res.Outcome != tune.Calibrated || res.Backlash < 16 || res.Backlash > 24 {
+			t.Fatalf("calibration %d: %s, backlash %d (true 20): %v %q", i+1, res.Outcome, res.Backlash, res.Err, res.Notes)
+		}
 	}
 	in.check(t)
 }
