@@ -4,8 +4,8 @@ import (
 	"fmt"
 	"math"
 
-	"github.com/tankd/tankd/sim/capacitor"
-	"github.com/tankd/tankd/sim/loop"
+	"github.com/tankd/tankd/controller/physics/capacitor"
+	"github.com/tankd/tankd/controller/physics/loop"
 )
 
 // RF answers what the line sees: the reflection coefficient of the loop, through its feed, at

@@ -5,29 +5,43 @@ import (
 	"os"
 	"strings"
 	"testing"
+
+	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/station"
 )
 
 func TestDefaultSpecValid(t *testing.T) {
 	if err := DefaultSpec().Validate(); err != nil {
 		t.Fatal(err)
 	}
+	if DefaultSpec().Description.Name != station.DefaultDescription().Name {
+		t.Error("the default spec is not the default description simulated")
+	}
 }
 
 func TestParseSpecOverridesAndRejects(t *testing.T) {
-	s, err := ParseSpec(strings.NewReader("name = \"x\"\n[loop]\nturns = 1\n[capacitor]\ntravel = \"stops\"\nspan_turns = 12\nmin_pf = 5\nmax_pf = 1000\n"))
+	s, err := ParseSpec(strings.NewReader("name = \"x\"\n[loop]\nturns = 1\n[capacitor]\ntravel = \"stops\"\nspan_turns = 12\nmin_pf = 5\nmax_pf = 1000\n[simulator]\nseed = 7\n[simulator.coupler]\nadc_bits = 12\n"))
 	if err != nil {
 		t.Fatal(err)
 	}
-	if s.Loop.Turns != 1 || s.Capacitor.SpanTurns != 12 || s.Loop.DiameterM != 2.3 {
-		t.Errorf("override not applied over the defaults: %+v", s.Loop)
+	if s.Loop.Turns != 1 || s.Capacitor.SpanTurns != 12 || s.Loop.DiameterM != 2.3 || s.Simulator.Seed != 7 ||
+		s.Simulator.Coupler.ADCBits != 12 || s.Simulator.Coupler.ADCNoiseMV != 0.6 {
+		t.Errorf("override not applied over the defaults: %+v", s)
 	}
-	_, err = ParseSpec(strings.NewReader("[loop]\nturnz = 2\n"))
-	if err == nil || !strings.Contains(err.Error(), "loop.turnz") {
-		t.Errorf("unknown key not reported: %v", err)
+	_, err = ParseSpec(strings.NewReader("[loop]\nturnz = 2\n[simulator.coupler]\nbits = 3\n"))
+	if err == nil || !strings.Contains(err.Error(), "loop.turnz") || !strings.Contains(err.Error(), "simulator.coupler.bits") {
+		t.Errorf("unknown keys not reported: %v", err)
 	}
-	_, err = ParseSpec(strings.NewReader("[loop]\nturns = 9\n[drive]\nmicrosteps = 0\n"))
-	if err == nil || !strings.Contains(err.Error(), "[loop]") || !strings.Contains(err.Error(), "[drive] microsteps 0") {
-		t.Errorf("not every bad key reported: %v", err)
+	_, err = ParseSpec(strings.NewReader("[loop]\nturns = 9\n[drive]\nmicrosteps = 0\n[simulator.drive]\nmiss_rate = 1\n"))
+	for _, want := range []string{"loop.turns: 9", "drive.microsteps: 0", "simulator.drive.miss_rate: 1"} {
+		if err == nil || !strings.Contains(err.Error(), want) {
+			t.Errorf("error %v lacks %q", err, want)
+		}
+	}
+	// the simulator's knobs belong in [simulator], not in the description's sections
+	if _, err := ParseSpec(strings.NewReader("[drive]\npullout_sps = 1000\n")); err == nil || !strings.Contains(err.Error(), "drive.pullout_sps") {
+		t.Errorf("a simulator knob in [drive]: %v", err)
 	}
 }
 
@@ -73,6 +87,32 @@ func TestRFDipMatchesModel(t *testing.T) {
 	}
 }
 
+// The physics prior and the simulator agree on where the dip is for a loop that is exactly as
+// described: the prior's position is the simulator's dip on the capacitor shaft, moved by half
+// the play (the up-approach side).
+func TestPriorAgreesWithTheSimulator(t *testing.T) {
+	for name, s := range Presets() {
+		rf, err := s.RF()
+		if err != nil {
+			t.Fatal(err)
+		}
+		p, err := s.Prior(20)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, f := range []float64{1.85e6, 3.75e6, 7.1e6} {
+			turns, ok := rf.DipTurns(f, 20)
+			pr, pok := p.Predict(physic.Frequency(f) * physic.Hertz)
+			if !ok {
+				continue // beyond this capacitor: TestPriorSlopeMatchesFiniteDifference's business
+			}
+			if want := turns*s.StepsPerTurn() + s.Drive.BacklashSteps/2; !pok || math.Abs(pr.Pos-want) > 1e-6 {
+				t.Errorf("%s at %g Hz: prior %+v, simulator's dip at %g steps", name, f, pr, want)
+			}
+		}
+	}
+}
+
 func BenchmarkSWREvaluation(b *testing.B) {
 	s := DefaultSpec()
 	c, _ := s.CapacitorModel()
@@ -99,5 +139,10 @@ func TestConfigFilesArePresets(t *testing.T) {
 	}
 	if _, err := Preset("nonesuch"); err == nil {
 		t.Error("unknown preset accepted")
+	}
+	for name := range station.Presets() {
+		if _, err := Preset(name); err != nil {
+			t.Errorf("station preset %s has no simulated station: %v", name, err)
+		}
 	}
 }

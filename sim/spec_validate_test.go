@@ -6,27 +6,21 @@ import (
 	"reflect"
 	"strings"
 	"testing"
+
+	"github.com/tankd/tankd/controller/station"
 )
 
-// specWithEveryKey is the demo station with a home switch, so that every key of the description
-// has a field to walk.
-func specWithEveryKey() Spec {
-	s := DefaultSpec()
-	s.Drive.Home = &Switch{AtTurns: 0.01, HysteresisSteps: 10}
-	return s
-}
-
-// numericKeys lists every numeric key of the description, found by reflection.
-func numericKeys(t *testing.T) []string {
+// simulatorKeys lists every numeric key of the simulator's own part of a station file.
+func simulatorKeys(t *testing.T) []string {
 	t.Helper()
 	var keys []string
-	walkKeys(reflect.ValueOf(specWithEveryKey()), "", func(key string, _ float64, hasRange bool) {
-		if !hasRange {
+	station.WalkKeys(DefaultSpec().Simulator, "simulator", func(key string, _ float64, numeric bool) {
+		if !numeric {
 			t.Errorf("key %s: a numeric kind the range check cannot read", key)
 		}
 		keys = append(keys, key)
 	})
-	if len(keys) < 50 {
+	if len(keys) < 15 {
 		t.Fatalf("found only %d numeric keys: the walk is broken", len(keys))
 	}
 	return keys
@@ -36,9 +30,6 @@ func numericKeys(t *testing.T) []string {
 func field(s *Spec, key string) reflect.Value {
 	v := reflect.ValueOf(s).Elem()
 	for _, part := range strings.Split(key, ".") {
-		if v.Kind() == reflect.Pointer {
-			v = v.Elem()
-		}
 		t := v.Type()
 		found := false
 		for i := range t.NumField() {
@@ -54,41 +45,43 @@ func field(s *Spec, key string) reflect.Value {
 	return v
 }
 
+// Every numeric key of a station file has a range: the description's keys their own
+// (controller/station tests them), the simulator's here.
 func TestEveryNumericKeyHasARange(t *testing.T) {
-	keys := numericKeys(t)
 	seen := map[string]bool{}
-	for _, k := range keys {
-		seen[k] = true
-		if _, ok := KeyRange(k); !ok {
-			t.Errorf("key %s has no accepted range", k)
+	station.WalkKeys(DefaultSpec(), "", func(key string, _ float64, _ bool) {
+		seen[key] = true
+		if _, ok := KeyRange(key); !ok {
+			t.Errorf("key %s has no accepted range", key)
+		}
+	})
+	for k := range simulatorRanges() {
+		if !seen[k] {
+			t.Errorf("range for %s, which is no key of a station file", k)
+		}
+		if _, ok := station.KeyRange(k); ok {
+			t.Errorf("%s has a range in the description's table too", k)
 		}
 	}
-	for k := range keyRanges() {
-		if !seen[k] {
-			t.Errorf("range for %s, which is no key of the description", k)
-		}
+	if len(simulatorKeys(t)) != len(simulatorRanges()) {
+		t.Errorf("%d simulator keys, %d ranges", len(simulatorKeys(t)), len(simulatorRanges()))
 	}
 }
 
-// badValues are values outside r that a field of kind k can hold: NaN and both infinities for
-// floats, and a value below and above the range.
-func badValues(r Range, k reflect.Kind) []float64 {
-	below := math.Min(r.Min-math.Max(1, math.Abs(r.Min)), -1) // never the 0 that selects a default
+// badValues are values outside r that a field of kind k can hold.
+func badValues(r station.Range, k reflect.Kind) []float64 {
+	below := math.Min(r.Min-math.Max(1, math.Abs(r.Min)), -1)
 	if r.MinOpen {
 		below = r.Min
 	}
 	above := r.Max + math.Max(1, math.Abs(r.Max))
-	var vals []float64
 	switch k {
 	case reflect.Float64:
-		vals = []float64{math.NaN(), math.Inf(1), math.Inf(-1), below, above}
+		return []float64{math.NaN(), math.Inf(1), math.Inf(-1), below, above}
 	case reflect.Int:
-		vals = []float64{below, above}
+		return []float64{below, above}
 	}
-	if r.Zero != "" && r.Min > 0 {
-		vals = append(vals, r.Min/2) // between the 0 that selects a default and the range
-	}
-	return vals
+	return nil
 }
 
 func setNumber(f reflect.Value, v float64) {
@@ -102,13 +95,13 @@ func setNumber(f reflect.Value, v float64) {
 	}
 }
 
-func TestValidateNamesEveryBadKeyAndItsRange(t *testing.T) {
-	for _, key := range numericKeys(t) {
+func TestValidateNamesEveryBadSimulatorKeyAndItsRange(t *testing.T) {
+	for _, key := range simulatorKeys(t) {
 		r, _ := KeyRange(key)
-		s := specWithEveryKey()
+		s := DefaultSpec()
 		kind := field(&s, key).Kind()
 		if kind == reflect.Uint64 {
-			if key != "seed" || r.Min != 0 || r.Max != math.MaxUint64 {
+			if key != "simulator.seed" || r.Min != 0 || r.Max != math.MaxUint64 {
 				t.Errorf("%s: an unsigned key that does not accept every value", key)
 			}
 			continue // every seed is a seed
@@ -117,12 +110,11 @@ func TestValidateNamesEveryBadKeyAndItsRange(t *testing.T) {
 		if len(vals) == 0 {
 			t.Errorf("%s: no bad values to try for kind %s", key, kind)
 		}
-		section, name := splitKey(key)
 		for _, v := range vals {
-			s := specWithEveryKey()
+			s := DefaultSpec()
 			setNumber(field(&s, key), v)
 			err := s.Validate()
-			want := fmt.Sprintf("[%s] %s %s: want %s", section, name, formatNumber(v), r)
+			want := key + ": " + r.Check(v).Error() // e.g. "simulator.coupler.adc_bits: 7: want 8 to 24"
 			if err == nil || !strings.Contains(err.Error(), want) {
 				t.Errorf("%s = %g: error %v, want it to contain %q", key, v, err, want)
 			}
@@ -132,31 +124,18 @@ func TestValidateNamesEveryBadKeyAndItsRange(t *testing.T) {
 
 // TOML itself can spell NaN and the infinities; they must fail at the parser's door.
 func TestParseSpecRejectsNonFiniteKeys(t *testing.T) {
-	for _, key := range numericKeys(t) {
-		s := specWithEveryKey()
+	for _, key := range simulatorKeys(t) {
+		s := DefaultSpec()
 		if field(&s, key).Kind() != reflect.Float64 {
 			continue
 		}
-		section, name := splitKey(key)
+		i := strings.LastIndex(key, ".")
 		for _, lit := range []string{"nan", "inf", "-inf"} {
-			text := fmt.Sprintf("[%s]\n%s = %s\n", section, name, lit)
-			if section == "drive.home" {
-				text = fmt.Sprintf("[drive.home]\nat_turns = 0.01\n%s = %s\n", name, lit)
-				if name == "at_turns" {
-					text = fmt.Sprintf("[drive.home]\nat_turns = %s\n", lit)
-				}
-			}
+			text := fmt.Sprintf("[%s]\n%s = %s\n", key[:i], key[i+1:], lit)
 			_, err := ParseSpec(strings.NewReader(text))
-			if err == nil || !strings.Contains(err.Error(), fmt.Sprintf("[%s] %s ", section, name)) || !strings.Contains(err.Error(), "want") {
+			if err == nil || !strings.Contains(err.Error(), key+": ") || !strings.Contains(err.Error(), "want") {
 				t.Errorf("%s = %s: %v", key, lit, err)
 			}
-		}
-	}
-	_, err := ParseSpec(strings.NewReader("[capacitor]\ntable = [[0, 10], [nan, 100], [1, inf]]\n"))
-	for _, want := range []string{"[capacitor] table point 2: fraction NaN: want 0 to 1",
-		"[capacitor] table point 3: pf +Inf: want 0.1 to 10000 pF"} {
-		if err == nil || !strings.Contains(err.Error(), want) {
-			t.Errorf("table with NaN and Inf: error %v, want it to contain %q", err, want)
 		}
 	}
 }
@@ -164,47 +143,32 @@ func TestParseSpecRejectsNonFiniteKeys(t *testing.T) {
 func TestValidateReportsEveryBadKeyAtOnce(t *testing.T) {
 	s := DefaultSpec()
 	s.Loop.DiameterM = math.NaN()
-	s.Radio.MaxPowerW = math.Inf(1)
-	s.Environment.SwingK = -1
+	s.Simulator.Radio.MaxPowerW = math.Inf(1)
+	s.Simulator.Weather.SwingK = -1
 	s.Drive.Microsteps = 0
 	err := s.Validate()
 	for _, want := range []string{
-		"[loop] diameter_m NaN: want 0.1 to 20 m",
-		"[radio] max_power_w +Inf: want more than 0 and at most 10000 W",
-		"[environment] swing_k -1: want 0 to 30 K",
-		"[drive] microsteps 0: want 1 to 256",
+		"loop.diameter_m: NaN: want 0.1 to 20 m",
+		"simulator.radio.max_power_w: +Inf: want more than 0 and at most 10000 W",
+		"simulator.weather.swing_k: -1: want 0 to 30 K",
+		"drive.microsteps: 0: want 1 to 256",
 	} {
 		if err == nil || !strings.Contains(err.Error(), want) {
 			t.Errorf("error %v lacks %q", err, want)
 		}
 	}
-	// A section with a bad key is not validated again by its part (which would report the
-	// same key in other words).
-	if strings.Contains(err.Error(), "loop geometry") {
-		t.Errorf("the bad diameter reported twice: %v", err)
+	// one error per problem, as the description's own
+	if j, ok := err.(interface{ Unwrap() []error }); !ok || len(j.Unwrap()) != 4 {
+		t.Errorf("want four errors joined, have %v", err)
 	}
 }
 
-// The ranges of the description must not be wider than the parts accept: a value at either end
-// of a key's range, all else as in the demo station, must validate, save where a cross-key rule
-// of the part forbids it with the demo's other values.
-func TestKeyRangeEndsAreAccepted(t *testing.T) {
-	crossKey := map[string]string{
-		"loop.diameter_m 0.1":      "the 22 mm conductor at most a tenth of the turn diameter",
-		"loop.conductor_m 0.2":     "turns must not touch: the 0.1 m spacing above the conductor",
-		"loop.spacing_m 0":         "turns must not touch: spacing above the 22 mm conductor",
-		"capacitor.min_pf 10000":   "min_pf below max_pf (500)",
-		"capacitor.max_pf 0.1":     "max_pf above min_pf (10)",
-		"drive.home.at_turns 100":  "the home switch must lie within the span (0.5 turns)",
-		"coupler.intercept_dbm 50": "the detector floor (−75 dBm) at or above the intercept",
-		"coupler.floor_dbm -150":   "the floor at or above the intercept (−84 dBm)",
-		"coupler.floor_dbm 50":     "the floor below the ceiling (15 dBm)",
-		"coupler.ceiling_dbm -150": "the ceiling above the floor (−75 dBm)",
-	}
-	used := map[string]bool{}
-	for _, key := range numericKeys(t) {
+// The simulator's ranges must not be wider than its parts accept: a value at either end of a
+// key's range, all else as in the demo station, must validate and build a station.
+func TestSimulatorKeyRangeEndsAreAccepted(t *testing.T) {
+	for _, key := range simulatorKeys(t) {
 		r, _ := KeyRange(key)
-		s := specWithEveryKey()
+		s := DefaultSpec()
 		if field(&s, key).Kind() == reflect.Uint64 {
 			continue
 		}
@@ -213,50 +177,11 @@ func TestKeyRangeEndsAreAccepted(t *testing.T) {
 			lo = math.Nextafter(r.Min, math.Inf(1))
 		}
 		for _, v := range []float64{lo, r.Max} {
-			s := specWithEveryKey()
+			s := DefaultSpec()
 			setNumber(field(&s, key), v)
-			name := fmt.Sprintf("%s %g", key, v)
-			err := s.Validate()
-			if why, ok := crossKey[name]; ok {
-				used[name] = true
-				if err == nil {
-					t.Errorf("%s: accepted, though %s", name, why)
-				}
-				continue
+			if err := s.Validate(); err != nil {
+				t.Errorf("%s %g is within the key's range but fails: %v", key, v, err)
 			}
-			if err != nil {
-				t.Errorf("%s is within the key's range but fails: %v", name, err)
-			}
-		}
-	}
-	for k := range crossKey {
-		if !used[k] {
-			t.Errorf("cross-key exception %q matched no case", k)
-		}
-	}
-}
-
-func TestRangeWords(t *testing.T) {
-	for _, c := range []struct {
-		r    Range
-		v    float64
-		want string
-	}{
-		{Range{Min: 0.1, Max: 20, Unit: "m"}, math.NaN(), "NaN: want 0.1 to 20 m"},
-		{Range{Min: 0, MinOpen: true, Max: 10000, Unit: "W"}, 0, "0: want more than 0 and at most 10000 W"},
-		{Range{Min: 1, Max: 10, Zero: "estimate"}, 0.5, "0.5: want 0 (estimate) or 1 to 10"},
-		{FrequencyRange(), 1e9, "1e+09: want 100000 to 60000000 Hz (100 kHz to 60 MHz)"},
-		{Range{Min: -50, Max: 60, Unit: "°C"}, math.Inf(-1), "-Inf: want -50 to 60 °C"},
-	} {
-		err := c.r.Check(c.v)
-		if err == nil || err.Error() != c.want {
-			t.Errorf("Check(%g) = %v, want %q", c.v, err, c.want)
-		}
-	}
-	r := Range{Min: 1, Max: 10, Zero: "estimate"}
-	for _, v := range []float64{0, 1, 10} {
-		if err := r.Check(v); err != nil {
-			t.Errorf("Check(%g) = %v, want nil", v, err)
 		}
 	}
 }

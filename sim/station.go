@@ -3,14 +3,13 @@ package sim
 import (
 	"fmt"
 	"math"
-	"time"
 
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/physics/capacitor"
 	"github.com/tankd/tankd/controller/sense"
-	"github.com/tankd/tankd/sim/capacitor"
 	"github.com/tankd/tankd/sim/coupler"
 	"github.com/tankd/tankd/sim/env"
 	"github.com/tankd/tankd/sim/mech"
@@ -37,7 +36,7 @@ type Station struct {
 }
 
 // NewStation builds the station on clk (a *vclock.Clock in tests and benchmarks, the wall
-// clock for the real-time demo). Every random draw is seeded from s.Seed.
+// clock for the real-time demo). Every random draw is seeded from s.Simulator.Seed.
 func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	if err := s.Validate(); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
@@ -48,13 +47,13 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	}
 	st := &Station{Spec: s, Clock: clk, RF: rf, perTurn: s.StepsPerTurn()}
 	capOpts := rf.Capacitor().Options()
-	d := s.Drive
+	d, sd := s.Drive, s.Simulator.Drive
 	mo := mech.Options{
-		Seed:        s.Seed ^ 0x6d656368,
+		Seed:        s.Simulator.Seed ^ 0x6d656368,
 		StepsPerRev: d.StepsPerRev, Microsteps: d.Microsteps, GearRatio: d.GearRatio,
 		Backlash: int64(math.Round(d.BacklashSteps)), RandomPlay: true,
-		PulloutSpeed: d.PulloutSpeed, MaxAccel: d.MaxAccel, MissRate: d.MissRate,
-		SettleAmplitude: d.SettleSteps, SettleTime: time.Duration(d.SettleMS * float64(time.Millisecond)),
+		PulloutSpeed: sd.PulloutSpeed, MaxAccel: sd.MaxAccel, MissRate: sd.MissRate,
+		SettleAmplitude: sd.SettleSteps, SettleTime: d.Settle(),
 		SlipOnRelease: d.SlipOnRelease,
 		Name:          "simulated drive",
 	}
@@ -65,15 +64,16 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 		mo.Home = &mech.SwitchOptions{At: h.AtTurns * st.perTurn, Side: motion.Down, Hysteresis: h.HysteresisSteps}
 	}
 	// Start somewhere in the first third of the travel: a loop is rarely left at an end.
-	mo.Start = int64(st.perTurn * capOpts.Span * (0.1 + 0.2*float64(s.Seed%97)/97))
+	mo.Start = int64(st.perTurn * capOpts.Span * (0.1 + 0.2*float64(s.Simulator.Seed%97)/97))
 	if st.Mech, err = mech.New(clk, mo); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
 	if st.Weather, err = env.New(s.EnvOptions()); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
-	f := physic.Frequency(math.Round(s.Radio.FrequencyHz)) * physic.Hertz
-	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(s.Radio.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB}); err != nil {
+	ro := s.Simulator.Radio
+	f := physic.Frequency(math.Round(ro.FrequencyHz)) * physic.Hertz
+	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(ro.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB}); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
 	co, err := s.CouplerOptions()
@@ -133,7 +133,7 @@ func (st *Station) Best(f float64) (pos motion.Steps, swr float64, err error) {
 	if !ok {
 		return 0, 0, fmt.Errorf("station: the capacitor cannot tune %.0f Hz", f)
 	}
-	half := st.Spec.Drive.BacklashSteps / 2
+	half := st.Spec.ShaftLag()
 	// Up-approach: the shaft trails the motor by half the play.
 	centre := turns*st.perTurn + half
 	swr = math.Inf(1)
@@ -144,48 +144,4 @@ func (st *Station) Best(f float64) (pos motion.Steps, swr float64, err error) {
 		}
 	}
 	return pos, swr, nil
-}
-
-// SoftLimits are the axis limits the description asks for: the capacitor's rising range, the
-// end margin inside each end, in the Up-approach coordinates of the motor (the shaft trails the
-// motor by half the play).
-func (s Spec) SoftLimits() (lo, hi motion.Steps) {
-	span := s.Capacitor.SpanTurns * s.StepsPerTurn()
-	m := s.Capacitor.EndMarginPct / 100 * span
-	half := s.Drive.BacklashSteps / 2
-	return motion.Steps(math.Ceil(m + half)), motion.Steps(math.Floor(span - m + half))
-}
-
-// AxisOptions are the motion options the description implies: its planned speed and
-// acceleration, settling, soft limits, the given nominal backlash (an upper bound until a
-// calibration measures it), and homing onto the home switch if there is one.
-func (s Spec) AxisOptions(nominalBacklash motion.Steps) motion.Options {
-	d := s.Drive
-	lo, hi := s.SoftLimits()
-	o := motion.Options{
-		Min: lo, Max: hi, MaxSpeed: d.MaxSpeed, Accel: d.Accel,
-		Settle:   time.Duration(d.SettleMS * float64(time.Millisecond)),
-		Poll:     2 * time.Millisecond,
-		Backlash: nominalBacklash, Approach: motion.Up, ApproachMargin: 16,
-		SlipWhenReleased: d.SlipOnRelease,
-	}
-	if h := d.Home; h != nil {
-		at := h.AtTurns * s.StepsPerTurn()
-		// slow enough that the ramped stop after the switch trips stays well clear of the
-		// end stop behind it
-		fast := math.Min(d.MaxSpeed/2, math.Sqrt(d.Accel*math.Max(at, 50)/2))
-		o.Homing = motion.HomingOptions{
-			Dir: motion.Down, FastSpeed: fast, SlowSpeed: math.Min(200, fast),
-			BackOff: motion.Steps(math.Max(4*h.HysteresisSteps, 2*float64(nominalBacklash)) + 16),
-			// moving down onto the switch the shaft leads the motor by half the play
-			HomePosition: motion.Steps(math.Round(at - d.BacklashSteps/2)),
-		}
-	}
-	return o
-}
-
-// Prior is the physics prior from the description, in the axis coordinates AxisOptions sets
-// up, for a loop at temp °C.
-func (s Spec) Prior(tol Tolerance, temp float64) (*Prior, error) {
-	return NewPrior(s, s.Drive.BacklashSteps/2, tol, temp)
 }

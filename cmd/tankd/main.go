@@ -199,7 +199,7 @@ func serve(ctx context.Context, o options, log *slog.Logger) (err error) {
 		}
 		ax.Distrust("no clean stop recorded")
 	}
-	mo, err := spec.MapOptions(sim.DefaultTolerance)
+	mo, err := spec.MapOptions()
 	if err != nil {
 		return err
 	}

@@ -12,6 +12,7 @@ import (
 	"strings"
 	"text/tabwriter"
 
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/bench"
 )
@@ -19,8 +20,8 @@ import (
 // Ranges of the benchmark's flags: a hundred thousand scenarios take hours; a thousand workers
 // is more CPUs than any one machine the benchmark runs on (both from memory).
 var (
-	scenariosRange = sim.Range{Min: 1, Max: 100000}
-	workersRange   = sim.Range{Min: 1, Max: 1000, Zero: "one per CPU"}
+	scenariosRange = station.Range{Min: 1, Max: 100000}
+	workersRange   = station.Range{Min: 1, Max: 1000, Zero: "one per CPU"}
 )
 
 func runBench(args []string, stdout, stderr io.Writer) error {

@@ -7,18 +7,18 @@ import (
 
 	"gonum.org/v1/plot/plotter"
 
-	"github.com/tankd/tankd/sim"
+	"github.com/tankd/tankd/controller/station"
 )
 
 // widthRange is how far either side of the dip a curve may reach: a hundred bandwidths is
 // far past where the SWR is worth drawing (common practice).
-var widthRange = sim.Range{Min: 0, MinOpen: true, Max: 100, Unit: "bandwidths"}
+var widthRange = station.Range{Min: 0, MinOpen: true, Max: 100, Unit: "bandwidths"}
 
 func runCurve(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("curve", stderr)
 	nf := newNumFlags(fs)
 	geo := addGeometryFlags(fs, nf)
-	freq := nf.Float("freq", 3.75e6, sim.FrequencyRange(), "operating frequency")
+	freq := nf.Float("freq", 3.75e6, station.FrequencyRange(), "operating frequency")
 	against := fs.String("x", "step", "horizontal axis: step (SWR against motor step at -freq) or freq (SWR against frequency with the capacitor at -freq's dip)")
 	width := nf.Float("width", 3, widthRange, "span either side of the dip, in loaded bandwidths")
 	temp := nf.Float("temp", 20, temperatureRange, "temperature")

@@ -11,9 +11,10 @@ import (
 	"text/tabwriter"
 
 	"github.com/tankd/tankd/controller/band"
+	"github.com/tankd/tankd/controller/physics/loop"
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/bench"
-	"github.com/tankd/tankd/sim/loop"
 )
 
 // designRow is one frequency of a design report; its JSON keys are the report's documented
@@ -78,7 +79,7 @@ func (l *frequencyList) Set(s string) error {
 		}
 		f, err := strconv.ParseFloat(p, 64)
 		if err != nil {
-			return fmt.Errorf("frequency %q: want a frequency in Hz, e.g. 3750000, %s", p, sim.FrequencyRange())
+			return fmt.Errorf("frequency %q: want a frequency in Hz, e.g. 3750000, %s", p, station.FrequencyRange())
 		}
 		l.freqs = append(l.freqs, f)
 	}
@@ -115,7 +116,7 @@ func addGeometryFlags(fs *flag.FlagSet, nf *numFlags) *geometryFlags {
 	g := &geometryFlags{floats: map[string]*float64{}}
 	fs.StringVar(&g.config, "config", "", "station description (TOML); default: the built-in demo station")
 	for _, gf := range geometryFlagKeys() {
-		r, _ := sim.KeyRange(gf.key) // every key has one: TestGeometryFlagsTakeTheirKeysRanges
+		r, _ := station.KeyRange(gf.key) // every key has one: TestGeometryFlagsTakeTheirKeysRanges
 		if gf.name == "turns" {
 			g.turns = nf.Int(gf.name, 0, r, gf.usage)
 			continue
@@ -125,7 +126,8 @@ func addGeometryFlags(fs *flag.FlagSet, nf *numFlags) *geometryFlags {
 	return g
 }
 
-// spec loads the description and applies the flags that were given.
+// spec loads the station file (the built-in demo station without -config) and applies the
+// flags that were given to its description.
 func (g *geometryFlags) spec(fs *flag.FlagSet) (sim.Spec, error) {
 	s := sim.DefaultSpec()
 	if g.config != "" {
@@ -134,47 +136,71 @@ func (g *geometryFlags) spec(fs *flag.FlagSet) (sim.Spec, error) {
 			return s, err
 		}
 	}
-	fs.Visit(func(f *flag.Flag) {
-		switch f.Name {
-		case "turns":
-			s.Loop.Turns = *g.turns
-		case "diameter":
-			s.Loop.DiameterM = *g.floats[f.Name]
-		case "conductor":
-			s.Loop.ConductorM = *g.floats[f.Name]
-		case "spacing":
-			s.Loop.SpacingM = *g.floats[f.Name]
-		case "stray":
-			s.Loop.StrayPF = *g.floats[f.Name]
-		case "esr":
-			s.Loop.ExtraLossOhm, s.Loop.CapacitorQ, s.Loop.GroundOhm = *g.floats[f.Name], 0, 0
-		case "cmin":
-			s.Capacitor.MinPF = *g.floats[f.Name]
-			s.Capacitor.Table = nil
-		case "cmax":
-			s.Capacitor.MaxPF = *g.floats[f.Name]
-			s.Capacitor.Table = nil
-		}
-	})
+	g.apply(fs, &s.Description)
 	if err := s.Validate(); err != nil {
 		return s, usageError{err}
 	}
 	return s, nil
 }
 
+// description is the station's description alone, for the design calculator: the station file's
+// description (its [simulator] section, if any, is read and checked but not used) with the
+// flags that were given applied.
+func (g *geometryFlags) description(fs *flag.FlagSet) (station.Description, error) {
+	d := station.DefaultDescription()
+	if g.config != "" {
+		s, err := sim.LoadSpec(g.config)
+		if err != nil {
+			return d, err
+		}
+		d = s.Description
+	}
+	g.apply(fs, &d)
+	if err := d.Validate(); err != nil {
+		return d, usageError{err}
+	}
+	return d, nil
+}
+
+// apply sets the keys of the flags that were given.
+func (g *geometryFlags) apply(fs *flag.FlagSet, d *station.Description) {
+	fs.Visit(func(f *flag.Flag) {
+		switch f.Name {
+		case "turns":
+			d.Loop.Turns = *g.turns
+		case "diameter":
+			d.Loop.DiameterM = *g.floats[f.Name]
+		case "conductor":
+			d.Loop.ConductorM = *g.floats[f.Name]
+		case "spacing":
+			d.Loop.SpacingM = *g.floats[f.Name]
+		case "stray":
+			d.Loop.StrayPF = *g.floats[f.Name]
+		case "esr":
+			d.Loop.ExtraLossOhm, d.Loop.CapacitorQ, d.Loop.GroundOhm = *g.floats[f.Name], 0, 0
+		case "cmin":
+			d.Capacitor.MinPF = *g.floats[f.Name]
+			d.Capacitor.Table = nil
+		case "cmax":
+			d.Capacitor.MaxPF = *g.floats[f.Name]
+			d.Capacitor.Table = nil
+		}
+	})
+}
+
 // Ranges of the design calculator's own flags. Ten kilowatts is above every amateur licence's
 // limit; −50 to 100 °C runs from the coldest winter night to copper in summer sun carrying
 // kilowatts (both from memory).
 var (
-	powerRange       = sim.Range{Min: 0, MinOpen: true, Max: 10000, Unit: "W"}
-	temperatureRange = sim.Range{Min: -50, Max: 100, Unit: "°C"}
+	powerRange       = station.Range{Min: 0, MinOpen: true, Max: 10000, Unit: "W"}
+	temperatureRange = station.Range{Min: -50, Max: 100, Unit: "°C"}
 )
 
 func runDesign(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("design", stderr)
 	nf := newNumFlags(fs)
 	geo := addGeometryFlags(fs, nf)
-	freqs := nf.Frequencies("freq", "frequencies to report in `Hz`, comma-separated, each "+sim.FrequencyRange().String())
+	freqs := nf.Frequencies("freq", "frequencies to report in `Hz`, comma-separated, each "+station.FrequencyRange().String())
 	bands := fs.String("band", "", "bands to report at their edges and centre, e.g. 160m,80m (default 160m,80m,40m without -freq)")
 	power := nf.Float("power", 100, powerRange, "transmitter power delivered to the loop")
 	temp := nf.Float("temp", 20, temperatureRange, "conductor temperature")
@@ -186,7 +212,7 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 	if err := nf.parse(args); err != nil {
 		return err
 	}
-	s, err := geo.spec(fs)
+	d, err := geo.description(fs)
 	if err != nil {
 		return err
 	}
@@ -216,14 +242,15 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 			points = append(points, point{b.Name, f})
 		}
 	}
-	rf, err := s.RF()
+	m := d.Model()
+	c, err := d.CapacitorModel()
 	if err != nil {
 		return err
 	}
-	capOpts := rf.Capacitor().Options()
+	capOpts := c.Options()
 	rows := make([]designRow, len(points))
 	for i, p := range points {
-		rows[i] = rowOf(p.band, rf.Electrical(p.f, *power, *temp), rf.Model(), capOpts.Min, capOpts.Max)
+		rows[i] = rowOf(p.band, m.At(p.f, *power, *temp), m, capOpts.Min, capOpts.Max)
 	}
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
@@ -234,7 +261,7 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 		fmt.Fprintln(stderr, caution)
 		return nil
 	}
-	printDesign(stdout, rf.Model(), capOpts.Min, capOpts.Max, rows, bandList, *power, *temp)
+	printDesign(stdout, m, capOpts.Min, capOpts.Max, rows, bandList, *power, *temp)
 	fmt.Fprintln(stdout)
 	fmt.Fprintln(stdout, caution)
 	return nil

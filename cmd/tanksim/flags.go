@@ -8,7 +8,7 @@ import (
 	"strconv"
 	"strings"
 
-	"github.com/tankd/tankd/sim"
+	"github.com/tankd/tankd/controller/station"
 )
 
 // numFlags declares a command's numeric flags, each with its accepted range. Parsing only reads
@@ -25,7 +25,7 @@ func newNumFlags(fs *flag.FlagSet) *numFlags { return &numFlags{fs: fs} }
 // numValue is one numeric flag: exactly one of f, i and u is set.
 type numValue struct {
 	name  string
-	r     sim.Range
+	r     station.Range
 	f     *float64
 	i     *int
 	u     *uint64
@@ -85,12 +85,12 @@ func (v *numValue) number() float64 {
 	return float64(*v.u)
 }
 
-// seedRange is every seed, in words: sim.Range would write its top in exponent form.
+// seedRange is every seed, in words: station.Range would write its top in exponent form.
 const seedRange = "0 to 18446744073709551615"
 
 // usageWithRange appends the range to the flag's help; the unit, or the word the description
 // marks with backquotes, is what the help shows after the flag's name.
-func usageWithRange(usage string, r sim.Range) string {
+func usageWithRange(usage string, r station.Range) string {
 	rng := r.String()
 	if r.Max == math.MaxUint64 {
 		rng = seedRange
@@ -107,7 +107,7 @@ func (n *numFlags) add(v *numValue, usage string) {
 }
 
 // Float declares a float flag.
-func (n *numFlags) Float(name string, def float64, r sim.Range, usage string) *float64 {
+func (n *numFlags) Float(name string, def float64, r station.Range, usage string) *float64 {
 	p := new(float64)
 	*p = def
 	n.add(&numValue{name: name, r: r, f: p}, usage)
@@ -115,7 +115,7 @@ func (n *numFlags) Float(name string, def float64, r sim.Range, usage string) *f
 }
 
 // Int declares an integer flag.
-func (n *numFlags) Int(name string, def int, r sim.Range, usage string) *int {
+func (n *numFlags) Int(name string, def int, r station.Range, usage string) *int {
 	p := new(int)
 	*p = def
 	n.add(&numValue{name: name, r: r, i: p}, usage)
@@ -126,7 +126,7 @@ func (n *numFlags) Int(name string, def int, r sim.Range, usage string) *int {
 func (n *numFlags) Seed(name string, def uint64, usage string) *uint64 {
 	p := new(uint64)
 	*p = def
-	n.add(&numValue{name: name, r: sim.Range{Min: 0, Max: math.MaxUint64}, u: p}, usage)
+	n.add(&numValue{name: name, r: station.Range{Min: 0, Max: math.MaxUint64}, u: p}, usage)
 	return p
 }
 
@@ -151,7 +151,7 @@ func (n *numFlags) check() error {
 	}
 	for _, l := range n.lists {
 		for _, f := range l.freqs {
-			if err := sim.FrequencyRange().Check(f); err != nil {
+			if err := station.FrequencyRange().Check(f); err != nil {
 				errs = append(errs, fmt.Errorf("-%s %w", l.name, err))
 			}
 		}
@@ -160,16 +160,6 @@ func (n *numFlags) check() error {
 		return usageError{err}
 	}
 	return nil
-}
-
-// specRange is the range of a station description's key, for a flag that sets it.
-func specRange(key string) sim.Range {
-	r, ok := sim.KeyRange(key)
-	if !ok {
-		// A programming error that every test of the command would meet at once.
-		panic("tanksim: no range for station key " + key)
-	}
-	return r
 }
 
 // parse parses the command line, then checks every numeric flag given against its range.

@@ -7,7 +7,7 @@ import (
 	"strings"
 	"testing"
 
-	"github.com/tankd/tankd/sim"
+	"github.com/tankd/tankd/controller/station"
 )
 
 // numericFlag is a numeric flag of a command, the range its errors must state, and a value
@@ -18,7 +18,7 @@ type numericFlag struct {
 
 func keyRangeText(t *testing.T, key string) string {
 	t.Helper()
-	r, ok := sim.KeyRange(key)
+	r, ok := station.KeyRange(key)
 	if !ok {
 		t.Fatalf("no range for %s", key)
 	}
@@ -28,7 +28,7 @@ func keyRangeText(t *testing.T, key string) string {
 // numericFlags lists every numeric flag of every command. TestNumericFlagTableIsComplete keeps
 // it in step with the commands' own flag listings.
 func numericFlags(t *testing.T) map[string][]numericFlag {
-	freq := sim.FrequencyRange().String()
+	freq := station.FrequencyRange().String()
 	geometry := []numericFlag{
 		{"turns", keyRangeText(t, "loop.turns"), "9"},
 		{"diameter", keyRangeText(t, "loop.diameter_m"), "50"},
@@ -163,7 +163,7 @@ func TestNumericFlagTableIsComplete(t *testing.T) {
 // The flags that set a station description's key take its range: one home for each range.
 func TestGeometryFlagsTakeTheirKeysRanges(t *testing.T) {
 	for _, gf := range geometryFlagKeys() {
-		r, ok := sim.KeyRange(gf.key)
+		r, ok := station.KeyRange(gf.key)
 		if !ok {
 			t.Errorf("-%s sets %s, which has no range", gf.name, gf.key)
 			continue

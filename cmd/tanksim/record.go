@@ -10,8 +10,8 @@ import (
 	"os"
 
 	"github.com/tankd/tankd/controller/record"
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/controller/tune"
-	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/bench"
 )
 
@@ -20,17 +20,17 @@ import (
 // steps, so a prediction further off than that is off the capacitor (the demo station's
 // 160,000 steps a capacitor turn).
 var (
-	sweepSpanRange = sim.Range{Min: 0, MinOpen: true, Max: 100, Unit: "half-widths"}
-	densityRange   = sim.Range{Min: 0, MinOpen: true, Max: 100, Unit: "readings"}
-	offsetRange    = sim.Range{Min: -100000, Max: 100000, Unit: "steps"}
-	sigmaRange     = sim.Range{Min: 0, Max: 100000, Unit: "steps"}
+	sweepSpanRange = station.Range{Min: 0, MinOpen: true, Max: 100, Unit: "half-widths"}
+	densityRange   = station.Range{Min: 0, MinOpen: true, Max: 100, Unit: "readings"}
+	offsetRange    = station.Range{Min: -100000, Max: 100000, Unit: "steps"}
+	sigmaRange     = station.Range{Min: 0, Max: 100000, Unit: "steps"}
 )
 
 func runRecord(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("record", stderr)
 	nf := newNumFlags(fs)
 	geo := addGeometryFlags(fs, nf)
-	freq := nf.Float("freq", 3.75e6, sim.FrequencyRange(), "frequency")
+	freq := nf.Float("freq", 3.75e6, station.FrequencyRange(), "frequency")
 	seed := nf.Seed("seed", 1, "simulator `seed`")
 	out := fs.String("o", "", "recording to write (default standard output)")
 	span := nf.Float("span", 6, sweepSpanRange, "how far either side of the dip to sweep")
@@ -52,7 +52,7 @@ flags:`)
 	if err != nil {
 		return err
 	}
-	s.Seed = *seed
+	s.Simulator.Seed = *seed
 	r, err := bench.NewRig(bench.RigOptions{Truth: s})
 	if err != nil {
 		return err

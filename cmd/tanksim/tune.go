@@ -16,20 +16,20 @@ import (
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/record"
 	"github.com/tankd/tankd/controller/sense"
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/controller/tune"
-	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/bench"
 )
 
 // historyRange bounds the warm-up: two hundred tunes teach a map more than a season of use
 // (from memory), and take a while even on the virtual clock.
-var historyRange = sim.Range{Min: 1, Max: 200}
+var historyRange = station.Range{Min: 1, Max: 200}
 
 func runTune(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("tune", stderr)
 	nf := newNumFlags(fs)
 	geo := addGeometryFlags(fs, nf)
-	freq := nf.Float("freq", 3.75e6, sim.FrequencyRange(), "frequency to tune")
+	freq := nf.Float("freq", 3.75e6, station.FrequencyRange(), "frequency to tune")
 	mapState := fs.String("map", "cold", "cold: empty memory map; warm: calibrate and learn from -history earlier tunes first")
 	history := nf.Int("history", 8, historyRange, "warm: how many earlier `tunes` teach the map (spread over the bands the loop covers)")
 	seed := nf.Seed("seed", 1, "`seed` for the simulator's noise and the warm history")
@@ -55,7 +55,7 @@ flags:`)
 	if err != nil {
 		return err
 	}
-	s.Seed = *seed
+	s.Simulator.Seed = *seed
 	f := hz(*freq)
 	w := &tuneWriter{out: stdout, verbose: *verbose}
 	if *realTime && *mapState == "warm" {
@@ -250,7 +250,7 @@ func plotTune(path string, r *bench.Rig, f physic.Frequency, w *tuneWriter, res 
 	st := r.Station
 	perTurn := st.Spec.StepsPerTurn()
 	offset := float64(r.Axis.Position() - st.Mech.MotorPosition())
-	half := st.Spec.Drive.BacklashSteps / 2
+	half := st.Spec.ShaftLag()
 	var truth, fitted plotter.XYs
 	for i := range 600 {
 		x := xmin + (xmax-xmin)*float64(i)/599

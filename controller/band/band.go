@@ -1,9 +1,11 @@
 // Package band knows the amateur bands a small transmitting loop is built for, so that the
 // controller can tell a band change (retune from the memory map at once) from a move within a
-// band, and the design calculator can check a capacitor's coverage.
+// band, the design calculator can check a capacitor's coverage, and the simulated radio knows
+// where it may transmit. It is the one table of the bands in tankd.
 //
-// Edges are the widest ITU allocations (Region 2 where regions differ); a station's licence may
-// allow less, and the operator's own limits always win.
+// Edges are the widest of the three ITU regions' allocations (from memory of the ITU Radio
+// Regulations' table of allocations; 60 m is the worldwide secondary allocation of WRC-15); a
+// station's licence may allow less, and the operator's own limits always win.
 package band
 
 import (
@@ -27,11 +29,13 @@ func (b Band) Centre() physic.Frequency { return (b.Low + b.High) / 2 }
 
 func khz(k int64) physic.Frequency { return physic.Frequency(k) * physic.KiloHertz }
 
-// All lists the HF bands, lowest first (the low bands are where a loop's bandwidth is tightest).
+func hz(h int64) physic.Frequency { return physic.Frequency(h) * physic.Hertz }
+
+// all lists the HF bands, lowest first (the low bands are where a loop's bandwidth is tightest).
 var all = [...]Band{
 	{"160m", khz(1800), khz(2000)},
 	{"80m", khz(3500), khz(4000)},
-	{"60m", khz(5330), khz(5410)},
+	{"60m", hz(5351500), hz(5366500)},
 	{"40m", khz(7000), khz(7300)},
 	{"30m", khz(10100), khz(10150)},
 	{"20m", khz(14000), khz(14350)},
@@ -41,8 +45,8 @@ var all = [...]Band{
 	{"10m", khz(28000), khz(29700)},
 }
 
-// All returns the bands, lowest first.
-func All() []Band { return all[:] }
+// All returns the bands, lowest first: a fresh slice each call, so callers may edit it.
+func All() []Band { return append([]Band(nil), all[:]...) }
 
 // Of returns the band that contains f.
 func Of(f physic.Frequency) (Band, bool) {

@@ -23,6 +23,14 @@ func TestLookup(t *testing.T) {
 			t.Errorf("Of(%v) = %v, %v; want %s", c.f, b.Name, ok, c.want)
 		}
 	}
+	// WRC-15's worldwide secondary allocation at 60 m is 5351.5–5366.5 kHz (ITU Radio
+	// Regulations, from memory): 5357 kHz is in it, 5400 kHz (a national channel) is not.
+	if b, ok := Of(5357 * physic.KiloHertz); !ok || b.Name != "60m" {
+		t.Errorf("Of(5357 kHz) = %v, %v; want 60m", b.Name, ok)
+	}
+	if _, ok := Of(5400 * physic.KiloHertz); ok {
+		t.Error("5400 kHz is outside the worldwide 60 m allocation")
+	}
 	if _, ok := Of(2500 * physic.KiloHertz); ok {
 		t.Error("2.5 MHz is in no amateur band")
 	}
@@ -32,5 +40,10 @@ func TestLookup(t *testing.T) {
 	}
 	if _, err := Named("11m"); err == nil {
 		t.Error("11m is not an amateur band")
+	}
+	bands := All()
+	bands[0].Low = 0
+	if All()[0].Low == 0 {
+		t.Error("editing the slice All returned changed the table")
 	}
 }

@@ -1,8 +1,12 @@
 // Package clock is the time source the controller runs on.
 //
 // Every wait in the controller (motor ramps, settling, ADC conversions, timeouts) goes through a
-// Clock, so that the same code runs in real time on the loop and on the simulator's virtual clock
-// in tests and benchmarks, where a ten-second tune takes microseconds.
+// Clock, so that the same code runs in real time on the loop (Wall) and on a virtual clock
+// (Virtual) in tests and benchmarks, where a ten-second tune takes microseconds.
+//
+// What the caller must do: give every component of one installation the same Clock; on a
+// Virtual clock, let only one goroutine sleep at a time (each sleeper moves time on by itself),
+// and move time on by hand with Advance where a test needs time to pass while nothing sleeps.
 package clock
 
 import (

@@ -29,7 +29,7 @@ func BenchmarkPredict(b *testing.B) {
 func BenchmarkLearn(b *testing.B) {
 	m := benchMap(b, 200)
 	s := newSession(2, linearCap{})
-	s.clk.Advance(m.Drift().At.Sub(s.clk.Now()))
+	s.skip(m.Drift().At.Sub(s.at))
 	b.ReportAllocs()
 	for b.Loop() {
 		pt, _ := s.tune(s.nextTune())

@@ -10,8 +10,6 @@ import (
 	"time"
 
 	"periph.io/x/conn/v3/physic"
-
-	"github.com/tankd/tankd/sim/vclock"
 )
 
 func mustNew(t testing.TB, o Options) *Map {
@@ -88,7 +86,7 @@ func TestOptionsValidation(t *testing.T) {
 }
 
 func TestLearnRejectsInvalidPoints(t *testing.T) {
-	good := Point{Freq: 7 * physic.MegaHertz, Pos: 1000, At: vclock.Epoch, SWR: 1.2, Q: 300}
+	good := Point{Freq: 7 * physic.MegaHertz, Pos: 1000, At: epoch, SWR: 1.2, Q: 300}
 	for _, tc := range []struct {
 		name string
 		edit func(*Point)
@@ -138,11 +136,11 @@ func TestLinearCapacitorPredictsToTheStep(t *testing.T) {
 	// The learned positions are rounded to whole steps: a uniform error of σ = 1/√12 ≈ 0.29
 	// step (common practice). The capacitor is known to be straight, to 2 steps.
 	m := mustNew(t, Options{PosNoise: 0.29, Bend: 2})
-	learnStill(t, m, w, spreadFreqs(15), vclock.Epoch)
+	learnStill(t, m, w, spreadFreqs(15), epoch)
 	rng := rand.New(rand.NewPCG(1, 2))
 	for range 200 {
 		f := randFreq(rng, rng.IntN(len(worldBands)))
-		p, ok := m.Predict(f, vclock.Epoch, nil)
+		p, ok := m.Predict(f, epoch, nil)
 		if !ok || p.Source != SourceMap {
 			t.Fatalf("Predict(%v) = %+v, %v", f, p, ok)
 		}
@@ -174,9 +172,9 @@ func TestTabulatedCapacitorWithNoise(t *testing.T) {
 	m := mustNew(t, Options{Bend: 0.003 * worldTravel})
 	for i, f := range spreadFreqs(60) {
 		pos := pos2steps(w.truePos(f) + rng.NormFloat64())
-		mustLearn(t, m, Point{Freq: f, Pos: pos, At: vclock.Epoch.Add(time.Duration(i) * time.Second)})
+		mustLearn(t, m, Point{Freq: f, Pos: pos, At: epoch.Add(time.Duration(i) * time.Second)})
 	}
-	at := vclock.Epoch.Add(time.Minute)
+	at := epoch.Add(time.Minute)
 	var sumAbs, sumZ2 float64
 	const n = 300
 	for range n {
@@ -207,7 +205,7 @@ func TestTabulatedCapacitorWithNoise(t *testing.T) {
 }
 
 func TestMergeRules(t *testing.T) {
-	t0 := vclock.Epoch
+	t0 := epoch
 	base := Point{Freq: 7074 * physic.KiloHertz, Pos: 11000, At: t0}
 	m := mustNew(t, Options{MergeWithin: physic.KiloHertz})
 	mustLearn(t, m, base)
@@ -251,7 +249,7 @@ func TestMergeRules(t *testing.T) {
 
 func TestMaxPointsEvictsTheMostCrowded(t *testing.T) {
 	m := mustNew(t, Options{MaxPoints: 4})
-	t0 := vclock.Epoch
+	t0 := epoch
 	fs := []physic.Frequency{3500, 7000, 7010, 7020, 14000} // kHz
 	for i, f := range fs {
 		mustLearn(t, m, Point{Freq: f * physic.KiloHertz, Pos: int64(50000 - 3*f), At: t0.Add(time.Duration(i) * time.Minute)})
@@ -277,7 +275,7 @@ func TestMaxPointsEvictsTheMostCrowded(t *testing.T) {
 func TestDriftLearnedOnOneBandMovesAnother(t *testing.T) {
 	w := &world{capa: linearCap{}}
 	m := mustNew(t, Options{PosNoise: 0.29})
-	t0 := vclock.Epoch
+	t0 := epoch
 	learnStill(t, m, w, spreadFreqs(15), t0)
 
 	f80 := 3600 * physic.KiloHertz
@@ -320,7 +318,7 @@ func TestDriftLearnedOnOneBandMovesAnother(t *testing.T) {
 func TestDriftUncertaintyGrowsWithAge(t *testing.T) {
 	w := &world{capa: linearCap{}}
 	m := mustNew(t, Options{PosNoise: 0.29})
-	t0 := vclock.Epoch
+	t0 := epoch
 	for _, f := range spreadFreqs(10) {
 		mustLearn(t, m, Point{Freq: f, Pos: pos2steps(w.truePos(f)), At: t0})
 	}
@@ -344,16 +342,16 @@ func TestDriftUncertaintyGrowsWithAge(t *testing.T) {
 func TestShiftMovesEveryPrediction(t *testing.T) {
 	w := &world{capa: linearCap{}}
 	m := mustNew(t, Options{})
-	learnStill(t, m, w, spreadFreqs(12), vclock.Epoch)
+	learnStill(t, m, w, spreadFreqs(12), epoch)
 	fs := []physic.Frequency{3550 * physic.KiloHertz, 7100 * physic.KiloHertz, 14200 * physic.KiloHertz}
 	var before []Prediction
 	for _, f := range fs {
-		p, _ := m.Predict(f, vclock.Epoch, nil)
+		p, _ := m.Predict(f, epoch, nil)
 		before = append(before, p)
 	}
 	m.Shift(-37)
 	for i, f := range fs {
-		p, _ := m.Predict(f, vclock.Epoch, nil)
+		p, _ := m.Predict(f, epoch, nil)
 		// 1e-6 step: float rounding of positions near 5e4 (common practice).
 		if math.Abs(p.Pos-(before[i].Pos-37)) > 1e-6 || math.Abs(p.Sigma-before[i].Sigma) > 1e-6 {
 			t.Errorf("after Shift(-37) at %v: %+v, before %+v", f, p, before[i])
@@ -364,7 +362,7 @@ func TestShiftMovesEveryPrediction(t *testing.T) {
 func TestForgetAndReset(t *testing.T) {
 	w := &world{capa: linearCap{}}
 	m := mustNew(t, Options{})
-	learnStill(t, m, w, spreadFreqs(10), vclock.Epoch)
+	learnStill(t, m, w, spreadFreqs(10), epoch)
 	n := m.Forget(func(p Point) bool { return p.Freq < 6*physic.MegaHertz })
 	if n != 4 || m.Len() != 6 {
 		t.Fatalf("Forget below 6 MHz removed %d, left %d; want 4 and 6", n, m.Len())
@@ -375,7 +373,7 @@ func TestForgetAndReset(t *testing.T) {
 		}
 	}
 	m.Reset()
-	if _, ok := m.Predict(7*physic.MegaHertz, vclock.Epoch, nil); ok || m.Len() != 0 {
+	if _, ok := m.Predict(7*physic.MegaHertz, epoch, nil); ok || m.Len() != 0 {
 		t.Fatalf("after Reset: Len %d, prediction %v", m.Len(), ok)
 	}
 	if d := m.Drift(); d != (Drift{}) {
@@ -389,24 +387,24 @@ func TestPriorWithFewPoints(t *testing.T) {
 	f1 := 7050 * physic.KiloHertz
 
 	m := mustNew(t, Options{})
-	if _, ok := m.Predict(f1, vclock.Epoch, nil); ok {
+	if _, ok := m.Predict(f1, epoch, nil); ok {
 		t.Fatal("an empty map without a prior predicted")
 	}
-	mustLearn(t, m, Point{Freq: f1, Pos: pos2steps(w.truePos(f1)), At: vclock.Epoch})
-	if _, ok := m.Predict(f1, vclock.Epoch, nil); ok {
+	mustLearn(t, m, Point{Freq: f1, Pos: pos2steps(w.truePos(f1)), At: epoch})
+	if _, ok := m.Predict(f1, epoch, nil); ok {
 		t.Fatal("a one-point map without a prior predicted")
 	}
 
 	m = mustNew(t, Options{Prior: prior})
-	p, ok := m.Predict(f1, vclock.Epoch, nil)
+	p, ok := m.Predict(f1, epoch, nil)
 	want, _ := prior.Predict(f1)
 	if !ok || p.Source != SourcePrior || p.Pos != want.Pos || p.Sigma != want.Sigma {
 		t.Fatalf("empty map: %+v, %v; want the prior's %+v", p, ok, want)
 	}
 
 	pos1 := pos2steps(w.truePos(f1))
-	mustLearn(t, m, Point{Freq: f1, Pos: pos1, At: vclock.Epoch})
-	p, ok = m.Predict(f1, vclock.Epoch, nil)
+	mustLearn(t, m, Point{Freq: f1, Pos: pos1, At: epoch})
+	p, ok = m.Predict(f1, epoch, nil)
 	// 1e-6 step: float rounding (common practice).
 	if !ok || p.Source != SourceAnchored || math.Abs(p.Pos-float64(pos1)) > 1e-6 {
 		t.Fatalf("one point, at its own frequency: %+v, %v; want %d", p, ok, pos1)
@@ -414,13 +412,13 @@ func TestPriorWithFewPoints(t *testing.T) {
 	at1 := p.Sigma
 	// Close to the anchor, the anchor takes out most of the prior's error (2 % of L).
 	f2 := 7150 * physic.KiloHertz
-	p2, _ := m.Predict(f2, vclock.Epoch, nil)
+	p2, _ := m.Predict(f2, epoch, nil)
 	pp2, _ := prior.Predict(f2)
 	if e, e0 := math.Abs(p2.Pos-w.truePos(f2)), math.Abs(pp2.Pos-w.truePos(f2)); e > e0/4 {
 		t.Errorf("100 kHz from the anchor the anchored prior is off by %.0f, the bare prior by %.0f", e, e0)
 	}
 	for _, f := range []physic.Frequency{7200 * physic.KiloHertz, 10100 * physic.KiloHertz, 14200 * physic.KiloHertz} {
-		p, _ := m.Predict(f, vclock.Epoch, nil)
+		p, _ := m.Predict(f, epoch, nil)
 		pp, _ := prior.Predict(f)
 		if p.Sigma <= at1 || p.Sigma > math.Hypot(pp.Sigma, pp.Sigma)+1 {
 			t.Errorf("at %v: σ %.1f, want above %.1f (at the point) and at most the prior's twice", f, p.Sigma, at1)
@@ -440,7 +438,7 @@ func TestPredictDoesNotAllocate(t *testing.T) {
 		m.Learn(pt)
 	}
 	temp := celsius(15)
-	at := s.clk.Now()
+	at := s.at
 	allocs := testing.AllocsPerRun(200, func() {
 		m.Predict(5350*physic.KiloHertz, at, &temp)
 	})

@@ -7,9 +7,10 @@ import (
 	"time"
 
 	"periph.io/x/conn/v3/physic"
-
-	"github.com/tankd/tankd/sim/vclock"
 )
+
+// epoch is where every session's time starts: a fixed instant, so that runs are reproducible.
+var epoch = time.Date(2026, time.January, 1, 0, 0, 0, 0, time.UTC)
 
 // A synthetic loop to learn from. The resonance is Thomson's formula f = 1/(2π√(LC)) (common
 // practice); the capacitor is either linear in shaft position or a tabulated law; the loop's
@@ -171,7 +172,7 @@ func randBand(rng *rand.Rand) int {
 // inductance wanders on top of that, and the operator tunes now here, now there.
 type session struct {
 	rng     *rand.Rand
-	clk     *vclock.Clock
+	at      time.Time // the session's clock
 	w       world
 	wanderL float64 // long-run 1-σ of the wander of deltaL
 	wanderO float64 // long-run 1-σ of the wander of the offset, steps
@@ -185,12 +186,12 @@ func newSession(seed uint64, capa capLaw) *session {
 	rng := rand.New(rand.NewPCG(seed, 0x5eed))
 	return &session{
 		rng:     rng,
-		clk:     vclock.New(vclock.Epoch),
+		at:      epoch,
 		w:       world{capa: capa},
 		wanderL: DefaultDriftMax,
 		wanderO: DefaultOffsetMax,
 		noise:   1,
-		t0:      vclock.Epoch,
+		t0:      epoch,
 		band:    randBand(rng),
 	}
 }
@@ -206,9 +207,16 @@ func (s *session) temperature(t time.Time) float64 {
 // the long run, as the drift of a real loop does. It matches the map's default half-life.
 var wanderHours = DefaultDriftHalfLife.Hours() / math.Ln2
 
+// skip moves the session's clock on by d; a negative d is ignored (time never runs backwards).
+func (s *session) skip(d time.Duration) {
+	if d > 0 {
+		s.at = s.at.Add(d)
+	}
+}
+
 // advance moves time on by d and lets the loop wander accordingly.
 func (s *session) advance(d time.Duration) {
-	s.clk.Advance(d)
+	s.skip(d)
 	// The exact discretisation of the Ornstein–Uhlenbeck process: decay, then the variance
 	// that the decay leaves room for.
 	a := math.Exp(-d.Hours() / wanderHours)
@@ -220,7 +228,7 @@ func (s *session) advance(d time.Duration) {
 
 // now returns the loop as it is at the current time, with its temperature.
 func (s *session) now() (world, float64) {
-	t := s.temperature(s.clk.Now())
+	t := s.temperature(s.at)
 	w := s.w
 	w.deltaL += copperTC * (t - s.temperature(s.t0))
 	return w, t
@@ -252,7 +260,7 @@ func (s *session) tune(f physic.Frequency) (Point, float64) {
 	pos := math.Round(truth + s.noise*s.rng.NormFloat64())
 	temp := physic.ZeroCelsius + physic.Temperature(math.Round((tc+0.25*s.rng.NormFloat64())*1e9))
 	return Point{
-		Freq: f, Pos: pos2steps(pos), At: s.clk.Now(),
+		Freq: f, Pos: pos2steps(pos), At: s.at,
 		Temp: temp, HasTemp: true, SWR: 1.1, Q: 400,
 	}, truth
 }

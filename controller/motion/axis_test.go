@@ -10,14 +10,14 @@ import (
 	"testing"
 	"time"
 
-	"github.com/tankd/tankd/sim/vclock"
+	"github.com/tankd/tankd/controller/clock"
 )
 
 var _ Drive = (*fakeDrive)(nil)
 
 // rig is an axis on a fake drive, enabled and referenced at 0 unless told otherwise.
 type rig struct {
-	clk          *vclock.Clock
+	clk          *clock.Virtual
 	d            *fakeDrive
 	a            *Axis
 	lower, upper *fakeSwitch
@@ -29,7 +29,7 @@ func testOptions() Options {
 
 func newRig(t *testing.T, o Options, home Switch) *rig {
 	t.Helper()
-	clk := vclock.New(vclock.Epoch)
+	clk := clock.NewVirtual(epoch)
 	r := &rig{clk: clk, d: newFakeDrive(clk), lower: &fakeSwitch{name: "lower"}, upper: &fakeSwitch{name: "upper"}}
 	a, err := NewAxis(r.d, clk, Switches{Home: home, Lower: r.lower, Upper: r.upper}, o)
 	if err != nil {
@@ -49,7 +49,7 @@ func newReferencedRig(t *testing.T, o Options) *rig {
 }
 
 func TestNewAxisReportsEveryBadOption(t *testing.T) {
-	_, err := NewAxis(newFakeDrive(vclock.New(vclock.Epoch)), vclock.New(vclock.Epoch), Switches{},
+	_, err := NewAxis(newFakeDrive(clock.NewVirtual(epoch)), clock.NewVirtual(epoch), Switches{},
 		Options{Min: 5, Max: 5, MaxSpeed: -1, Backlash: -3, Approach: 2})
 	if err == nil {
 		t.Fatal("NewAxis accepted bad options")
@@ -59,14 +59,14 @@ func TestNewAxisReportsEveryBadOption(t *testing.T) {
 			t.Errorf("error %q does not name %s", err, key)
 		}
 	}
-	if _, err := NewAxis(nil, vclock.New(vclock.Epoch), Switches{}, testOptions()); err == nil {
+	if _, err := NewAxis(nil, clock.NewVirtual(epoch), Switches{}, testOptions()); err == nil {
 		t.Error("NewAxis accepted a nil drive")
 	}
 }
 
 func TestMovesNeedEnableAndTrust(t *testing.T) {
 	ctx := context.Background()
-	clk := vclock.New(vclock.Epoch)
+	clk := clock.NewVirtual(epoch)
 	d := newFakeDrive(clk)
 	a, err := NewAxis(d, clk, Switches{}, testOptions())
 	if err != nil {
@@ -280,7 +280,7 @@ func TestFaultsStopTheMotorAndLatch(t *testing.T) {
 }
 
 func TestEnableErrorLatches(t *testing.T) {
-	clk := vclock.New(vclock.Epoch)
+	clk := clock.NewVirtual(epoch)
 	d := newFakeDrive(clk)
 	d.enableErr = errors.New("driver undervoltage")
 	a, err := NewAxis(d, clk, Switches{}, testOptions())
@@ -511,7 +511,7 @@ func TestHoming(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			clk := vclock.New(vclock.Epoch)
+			clk := clock.NewVirtual(epoch)
 			d := newFakeDrive(clk)
 			d.net = edge + 4000 + c.start
 			home := &edgeSwitch{d: d, at: edge, hyst: 30, stuck: c.stuck, dead: c.dead}
@@ -607,7 +607,7 @@ func TestSnapshotFromAnotherGoroutine(t *testing.T) {
 // hookClock runs a hook at a chosen Sleep, standing in for another goroutine acting between
 // two polls.
 type hookClock struct {
-	*vclock.Clock
+	*clock.Virtual
 	sleeps, at int
 	hook       func()
 }
@@ -617,12 +617,12 @@ func (c *hookClock) Sleep(ctx context.Context, d time.Duration) error {
 	if c.sleeps == c.at {
 		c.hook()
 	}
-	return c.Clock.Sleep(ctx, d)
+	return c.Virtual.Sleep(ctx, d)
 }
 
 func TestHaltFromElsewhereFailsTheMove(t *testing.T) {
-	vc := vclock.New(vclock.Epoch)
-	clk := &hookClock{Clock: vc}
+	vc := clock.NewVirtual(epoch)
+	clk := &hookClock{Virtual: vc}
 	d := newFakeDrive(vc)
 	a, err := NewAxis(d, clk, Switches{}, testOptions())
 	if err != nil {

@@ -8,7 +8,7 @@ import (
 	"testing"
 	"time"
 
-	"github.com/tankd/tankd/sim/vclock"
+	"github.com/tankd/tankd/controller/clock"
 )
 
 // hangCase is one way the fake drive hangs.
@@ -38,7 +38,7 @@ const homeEdge = 3000
 // Sleep fails, so that an axis that would wait on a hung drive for ever fails the test instead
 // of hanging it.
 type horizonClock struct {
-	*vclock.Clock
+	*clock.Virtual
 	horizon time.Time
 }
 
@@ -48,7 +48,7 @@ func (c *horizonClock) Sleep(ctx context.Context, d time.Duration) error {
 	if c.Now().After(c.horizon) {
 		return errHorizon
 	}
-	return c.Clock.Sleep(ctx, d)
+	return c.Virtual.Sleep(ctx, d)
 }
 
 // testHorizon is far beyond the longest move in these tests (homing's 11.5 s seek) and its
@@ -68,8 +68,8 @@ const (
 // switch's edge is at drive count homeEdge and the drive starts 4000 counts above it.
 func newHangRig(t *testing.T, o Options, home rigHome) *rig {
 	t.Helper()
-	vc := vclock.New(vclock.Epoch)
-	clk := &horizonClock{Clock: vc, horizon: vclock.Epoch.Add(testHorizon)}
+	vc := clock.NewVirtual(epoch)
+	clk := &horizonClock{Virtual: vc, horizon: epoch.Add(testHorizon)}
 	d := newFakeDrive(vc)
 	r := &rig{clk: vc, d: d, lower: &fakeSwitch{name: "lower"}, upper: &fakeSwitch{name: "upper"}}
 	sw := Switches{Lower: r.lower, Upper: r.upper}
@@ -424,7 +424,7 @@ func TestSlowDriveWithinItsAllowanceIsNoFault(t *testing.T) {
 }
 
 func TestTimeLimitDefaultsAndOptions(t *testing.T) {
-	clk := vclock.New(vclock.Epoch)
+	clk := clock.NewVirtual(epoch)
 	a, err := NewAxis(newFakeDrive(clk), clk, Switches{}, Options{Min: 0, Max: 100000})
 	if err != nil {
 		t.Fatal(err)

@@ -4,13 +4,17 @@ import (
 	"errors"
 	"time"
 
-	"github.com/tankd/tankd/sim/vclock"
+	"github.com/tankd/tankd/controller/clock"
 )
+
+// epoch is where every test's virtual clock starts: a fixed instant, so that runs are
+// reproducible.
+var epoch = time.Date(2026, time.January, 1, 0, 0, 0, 0, time.UTC)
 
 // fakeDrive emits each move's pulses on the Profile's schedule against a virtual clock and
 // records every one of them.
 type fakeDrive struct {
-	clk              *vclock.Clock
+	clk              *clock.Virtual
 	enabled, running bool
 	mv               Move
 	plan             Profile // the current or last move's profile as started, before any stop
@@ -62,7 +66,7 @@ func (f *fakeDrive) elapsed() time.Duration {
 	return el
 }
 
-func newFakeDrive(clk *vclock.Clock) *fakeDrive { return &fakeDrive{clk: clk} }
+func newFakeDrive(clk *clock.Virtual) *fakeDrive { return &fakeDrive{clk: clk} }
 
 func (f *fakeDrive) sync() {
 	if !f.running {

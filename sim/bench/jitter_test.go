@@ -43,7 +43,7 @@ func jitterRun(t *testing.T, station string, seed uint64, j Jitter) (log []strin
 	if err != nil {
 		t.Fatal(err)
 	}
-	spec.Seed = seed
+	spec.Simulator.Seed = seed
 	r, err := NewRig(RigOptions{Truth: spec, Jitter: j})
 	if err != nil {
 		t.Fatal(err)

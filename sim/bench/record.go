@@ -11,7 +11,6 @@ import (
 
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/record"
-	"github.com/tankd/tankd/sim"
 )
 
 // Sweep is a recorded sweep through the dip and what the simulator knows about it.
@@ -40,7 +39,7 @@ func RecordSweep(ctx context.Context, r *Rig, f physic.Frequency, span, perWidth
 		return Sweep{}, err
 	}
 	best += ax.Position() - st.Mech.MotorPosition()
-	prior, err := r.Described.Prior(sim.Tolerance{}, st.Temperature())
+	prior, err := r.Described.Prior(st.Temperature())
 	if err != nil {
 		return Sweep{}, err
 	}
@@ -60,7 +59,7 @@ func RecordSweep(ctx context.Context, r *Rig, f physic.Frequency, span, perWidth
 	}
 	defer func() { _ = st.Radio.Unkey(context.WithoutCancel(ctx)) }()
 	conv := 2 * st.Spec.Conversion()
-	if st.Spec.Coupler.Simultaneous {
+	if st.Spec.Simulator.Coupler.Simultaneous {
 		conv /= 2
 	}
 	speed := w / perWidth / conv.Seconds()
@@ -101,7 +100,7 @@ func RecordSweep(ctx context.Context, r *Rig, f physic.Frequency, span, perWidth
 	h := record.Header{Version: record.Version, Start: start.Truncate(time.Second), Meta: map[string]string{
 		"source":             "tanksim",
 		"loop":               st.Spec.Name,
-		"seed":               strconv.FormatUint(st.Spec.Seed, 10),
+		"seed":               strconv.FormatUint(st.Spec.Simulator.Seed, 10),
 		"true_best_step":     strconv.FormatInt(best, 10),
 		"backlash_steps":     strconv.FormatFloat(st.Spec.Drive.BacklashSteps, 'f', -1, 64),
 		"slope_steps_per_hz": strconv.FormatFloat(pr.Slope, 'g', 6, 64),

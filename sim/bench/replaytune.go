@@ -12,6 +12,7 @@ import (
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/record"
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim/replay"
 	"github.com/tankd/tankd/sim/vclock"
@@ -58,7 +59,8 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 		q = 1000
 		slope = -2 * q * width / f
 	}
-	backlash := motion.Steps(metaFloat(h, "backlash_steps", 50))
+	desc := recordedDescription(h)
+	backlash := motion.Steps(desc.Drive.BacklashSteps)
 	conv := time.Duration(metaFloat(h, "conversion_us", 1000)) * time.Microsecond
 	clk := vclock.New(h.Start)
 	start := best - motion.Steps(8*width) - 2*backlash
@@ -69,11 +71,12 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 	if err := rp.Enable(true); err != nil {
 		return nil, err
 	}
-	nominal := backlash + backlash/2 + 10
-	ax, err := motion.NewAxis(rp, clk, motion.Switches{}, motion.Options{
-		Min: min(lo, start) - nominal - 50, Max: hi + nominal + 50, MaxSpeed: 16000, Accel: 100000,
-		Settle: 15 * time.Millisecond, Poll: 2 * time.Millisecond, Backlash: nominal, ApproachMargin: 16,
-	})
+	nominal := desc.NominalBacklash()
+	axOpts := desc.AxisOptions(nominal)
+	// The recording's positions are the recorder's own count, not this description's travel:
+	// the soft limits are the recording's span, with room for a run-up past the play either side.
+	axOpts.Min, axOpts.Max = min(lo, start)-nominal-replayLimitMargin, hi+nominal+replayLimitMargin
+	ax, err := motion.NewAxis(rp, clk, motion.Switches{}, axOpts)
 	if err != nil {
 		return nil, err
 	}
@@ -86,7 +89,7 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 		return nil, err
 	}
 	tn, err := tune.New(tune.Deps{Axis: ax, Sensor: rp, Clock: clk, Map: mm, Transmitter: carrier{rp}, Observer: obs},
-		tune.Options{Transmit: true, NominalBacklash: nominal})
+		desc.TunerOptions(tune.Options{Transmit: true}, nominal))
 	if err != nil {
 		return nil, err
 	}
@@ -96,6 +99,24 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 // Tune runs the controller's tune on the recording.
 func (r *ReplayRig) Tune(ctx context.Context) tune.Result {
 	return r.Tuner.Tune(ctx, tune.Request{Freq: r.Freq, RF: true})
+}
+
+// replayLimitMargin is how far beyond the recording's span, and the nominal play beyond it, the
+// replay's soft limits lie, in steps: enough for a fine sweep that starts at an end of the
+// recording to run up past the play, and no further, since the recording answers nothing there.
+const replayLimitMargin = 50
+
+// defaultRecordedBacklash is the play assumed for a recording that does not say its own, steps:
+// about the demo station's (40) with some to spare.
+const defaultRecordedBacklash = 50
+
+// recordedDescription is the station a recording was made on, as far as its metadata says: the
+// demo station's description with the recording's gear play. A recording keeps no more of its
+// station; the replay's soft limits come from the recording itself (NewReplayRig).
+func recordedDescription(h record.Header) station.Description {
+	d := station.DefaultDescription()
+	d.Drive.BacklashSteps = metaFloat(h, "backlash_steps", defaultRecordedBacklash)
+	return d
 }
 
 func metaFloat(h record.Header, key string, def float64) float64 {

@@ -13,14 +13,16 @@ import (
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/sense"
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/vclock"
 )
 
 // Rig is the real controller wired to a simulated station on a virtual clock: the station is
-// built from the truth, the controller is configured from the description the builder wrote
-// down (which may differ from the truth, as real loops differ from their drawings).
+// built from the truth (a sim.Spec), the controller is configured from the description the
+// builder wrote down (a station.Description, which may differ from the truth's, as real loops
+// differ from their drawings) exactly as a real installation's controller is.
 type Rig struct {
 	Station *sim.Station
 	// Time is the clock everything runs on; Clock is the same clock when it is virtual (nil
@@ -30,19 +32,18 @@ type Rig struct {
 	Axis      *motion.Axis
 	Map       *memmap.Map
 	Tuner     *tune.Tuner
-	Described sim.Spec
+	Described station.Description
 	watch     *watch
 }
 
 // RigOptions configure a Rig.
 type RigOptions struct {
 	Truth     sim.Spec
-	Described sim.Spec // zero Name: the truth itself
+	Described station.Description // zero Name: the truth's own description
 	// NominalBacklash is what the controller assumes before calibrating: an upper bound on the
-	// play. Zero: the described backlash plus half again.
+	// play. Zero: the description's (station.Description.NominalBacklash).
 	NominalBacklash motion.Steps
-	Tolerance       sim.Tolerance // the prior's; zero: sim.DefaultTolerance
-	Start           time.Time     // zero: vclock.Epoch
+	Start           time.Time // zero: vclock.Epoch
 	Observer        tune.Observer
 	// RealTime runs the rig on the wall clock (a demo that takes as long as real hardware)
 	// instead of the virtual clock.
@@ -68,13 +69,10 @@ type RigOptions struct {
 // stand (the installer told the controller where it is); with one, the first tune homes.
 func NewRig(o RigOptions) (*Rig, error) {
 	if o.Described.Name == "" {
-		o.Described = o.Truth
+		o.Described = o.Truth.Description
 	}
 	if o.Start.IsZero() {
 		o.Start = vclock.Epoch
-	}
-	if o.Tolerance == (sim.Tolerance{}) {
-		o.Tolerance = sim.DefaultTolerance
 	}
 	desc := o.Described
 	if o.NominalBacklash == 0 {
@@ -105,8 +103,8 @@ func NewRig(o RigOptions) (*Rig, error) {
 	}
 	axOpts := desc.AxisOptions(o.NominalBacklash)
 	w := &watch{Drive: st.Mech, mech: st.Mech, lo: axOpts.Min, hi: axOpts.Max,
-		toSteps: desc.Drive.BacklashSteps / 2,
-		play:    math.Max(o.Truth.Drive.BacklashSteps, desc.Drive.BacklashSteps) + o.Truth.Drive.SettleSteps + 1,
+		toSteps: desc.ShaftLag(),
+		play:    math.Max(o.Truth.Drive.BacklashSteps, desc.Drive.BacklashSteps) + o.Truth.Simulator.Drive.SettleSteps + 1,
 	}
 	var drive motion.Drive = w
 	if o.WrapDrive != nil {
@@ -124,7 +122,7 @@ func NewRig(o RigOptions) (*Rig, error) {
 		ax.Reference(st.Mech.MotorPosition())
 		w.sync(ax.Position())
 	}
-	mo, err := desc.MapOptions(o.Tolerance)
+	mo, err := desc.MapOptions()
 	if err != nil {
 		return nil, err
 	}
@@ -189,7 +187,7 @@ func (r *Rig) FailDrive() { r.watch.fail = true }
 
 // LimitViolations counts the moves during which the simulator's true shaft went outside the
 // soft limits by more than the gear play and the settling ring account for: the shaft mapped to
-// motor steps as sim.Spec.SoftLimits defines them (plus half the described play), against
+// motor steps as station.Description.SoftLimits defines them (plus half the described play), against
 // [Min − tolerance, Max + tolerance], tolerance being the larger of the true and the described
 // play, the ring's amplitude, and one step. Homing legs do not count (see watch).
 func (r *Rig) LimitViolations() int { return r.watch.crossings }

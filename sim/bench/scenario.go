@@ -9,6 +9,7 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/band"
+	"github.com/tankd/tankd/controller/station"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/vclock"
 )
@@ -27,9 +28,9 @@ const (
 type Scenario struct {
 	ID        int
 	Seed      uint64
-	Base      string   // which station it was drawn from
-	Truth     sim.Spec // the simulated station
-	Described sim.Spec // what the controller is told
+	Base      string              // which station it was drawn from
+	Truth     sim.Spec            // the simulated station
+	Described station.Description // what the controller is told
 	Map       MapState
 	Freq      physic.Frequency
 	Band      string
@@ -98,16 +99,16 @@ func Generate(stations map[string]sim.Spec, names []string, n int, seed uint64, 
 	for i := range n {
 		r := rand.New(rand.NewPCG(seed, uint64(i)))
 		name := names[r.IntN(len(names))]
-		desc := stations[name]
-		desc.Seed = r.Uint64()
-		truth := desc
+		truth := stations[name]
+		truth.Simulator.Seed = r.Uint64()
+		desc := truth.Description
 		draw(r, &truth, k)
 		bands := covered[name]
-		sc := Scenario{ID: i, Seed: desc.Seed, Base: name, Truth: truth, Described: desc, Map: m}
+		sc := Scenario{ID: i, Seed: truth.Simulator.Seed, Base: name, Truth: truth, Described: desc, Map: m}
 		if k.Jitter != nil {
 			// From the scenario's seed, not from r: switching jitter on must not change the
 			// scenarios themselves.
-			sc.Jitter = k.Jitter(desc.Seed)
+			sc.Jitter = k.Jitter(sc.Seed)
 		}
 		b := bands[r.IntN(len(bands))]
 		sc.Band = b.Name
@@ -149,16 +150,17 @@ func Generate(stations map[string]sim.Spec, names []string, n int, seed uint64, 
 func draw(r *rand.Rand, s *sim.Spec, k Knobs) {
 	logU := func(lo, hi float64) float64 { return lo * math.Pow(hi/lo, r.Float64()) }
 	uni := func(lo, hi float64) float64 { return lo + (hi-lo)*r.Float64() }
-	s.Coupler.ADCNoiseMV *= logU(k.Noise[0], k.Noise[1])
+	sm := &s.Simulator
+	sm.Coupler.ADCNoiseMV *= logU(k.Noise[0], k.Noise[1])
 	s.Drive.BacklashSteps = math.Round(uni(k.Backlash[0], k.Backlash[1]))
 	if k.MissRate > 0 && r.IntN(2) == 0 {
-		s.Drive.MissRate = logU(k.MissRate/100, k.MissRate)
+		sm.Drive.MissRate = logU(k.MissRate/100, k.MissRate)
 	}
-	s.Environment.SwingK = uni(0, k.Drift)
-	s.Environment.WanderK = uni(0, k.Drift/4)
-	s.Environment.PeakHour = uni(12, 16)
-	s.Coupler.DirectivityDB = uni(k.Directivity[0], k.Directivity[1])
-	s.Coupler.LeakPhaseDeg = uni(0, 360)
+	sm.Weather.SwingK = uni(0, k.Drift)
+	sm.Weather.WanderK = uni(0, k.Drift/4)
+	sm.Weather.PeakHour = uni(12, 16)
+	sm.Coupler.DirectivityDB = uni(k.Directivity[0], k.Directivity[1])
+	sm.Coupler.LeakPhaseDeg = uni(0, 360)
 	if k.Perturb {
 		// A loop is never quite its drawing: strays, the exact size, the capacitor's range.
 		s.Loop.StrayPF *= uni(0.7, 1.3)
@@ -177,13 +179,14 @@ func freqIn(r *rand.Rand, b band.Band) physic.Frequency {
 
 // tunable says whether the described station reaches some of band b inside its soft limits.
 func tunable(s sim.Spec, b band.Band) bool {
-	return inLimits(s, s, b.Low) || inLimits(s, s, b.High)
+	return inLimits(s, s.Description, b.Low) || inLimits(s, s.Description, b.High)
 }
 
 // inLimits says whether the true station's dip at f lies inside the described soft limits,
 // clear of the strip an approach needs behind it.
-func inLimits(truth, desc sim.Spec, f physic.Frequency) bool {
-	p, err := truth.Prior(sim.Tolerance{}, truth.Environment.MeanC)
+func inLimits(truth sim.Spec, desc station.Description, f physic.Frequency) bool {
+	// the truth's own physics at its weather's mean temperature: where the dip really is
+	p, err := truth.Prior(truth.Simulator.Weather.MeanC)
 	if err != nil {
 		return false
 	}
@@ -199,7 +202,7 @@ func inLimits(truth, desc sim.Spec, f physic.Frequency) bool {
 // reachableIn draws a frequency in b that the true station can tune within the described soft
 // limits (the benchmark asks what the controller does with a tunable frequency; one beyond the
 // capacitor is a different question).
-func reachableIn(r *rand.Rand, truth, desc sim.Spec, b band.Band) (physic.Frequency, error) {
+func reachableIn(r *rand.Rand, truth sim.Spec, desc station.Description, b band.Band) (physic.Frequency, error) {
 	for range 50 {
 		f := freqIn(r, b)
 		if inLimits(truth, desc, f) {

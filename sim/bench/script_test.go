@@ -294,7 +294,7 @@ func (h *harness) station(out *strings.Builder, pos []string, kv map[string]stri
 	for _, flag := range pos[1:] {
 		kv[flag] = "true"
 	}
-	desc := s
+	desc := s.Description
 	num := func(k string, p *float64) {
 		if v, ok := kv[k]; ok {
 			f, err := strconv.ParseFloat(v, 64)
@@ -305,11 +305,11 @@ func (h *harness) station(out *strings.Builder, pos []string, kv map[string]stri
 		}
 	}
 	num("backlash", &s.Drive.BacklashSteps)
-	num("miss", &s.Drive.MissRate)
-	num("swing", &s.Environment.SwingK)
+	num("miss", &s.Simulator.Drive.MissRate)
+	num("swing", &s.Simulator.Weather.SwingK)
 	if v, ok := kv["noise"]; ok {
 		x, _ := strconv.ParseFloat(v, 64)
-		s.Coupler.ADCNoiseMV *= x
+		s.Simulator.Coupler.ADCNoiseMV *= x
 	}
 	if _, ok := kv["slip-on-release"]; ok {
 		s.Drive.SlipOnRelease = true
@@ -321,7 +321,7 @@ func (h *harness) station(out *strings.Builder, pos []string, kv map[string]stri
 	}
 	if v, ok := kv["seed"]; ok {
 		n, _ := strconv.ParseUint(v, 10, 64)
-		s.Seed, desc.Seed = n, n
+		s.Simulator.Seed = n
 	}
 	to := tune.Options{}
 	if v, ok := kv["carrier-wait"]; ok {

@@ -9,7 +9,6 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/motion"
-	"github.com/tankd/tankd/sim"
 )
 
 // Strategy names.
@@ -48,7 +47,7 @@ func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	clk := r.Time
 	start := clk.Now()
 	f := Hz(sc.Freq)
-	prior, err := r.Described.Prior(sim.Tolerance{}, r.Described.Environment.MeanC)
+	prior, err := r.Described.Prior(r.Described.Site.MeanC)
 	if err != nil {
 		return attempt{}, err
 	}

@@ -20,7 +20,7 @@ func weakMotorVacuum(t *testing.T) sim.Spec {
 		t.Fatal(err)
 	}
 	s.Drive.Home = nil
-	s.Drive.PulloutSpeed = s.Drive.MaxSpeed / 2
+	s.Simulator.Drive.PulloutSpeed = s.Drive.MaxSpeed / 2
 	return s
 }
 
@@ -90,7 +90,7 @@ func TestCalmPathCountsNothing(t *testing.T) {
 		}
 	}
 	spec := weakMotorVacuum(t)
-	spec.Drive.PulloutSpeed = 1.5 * spec.Drive.MaxSpeed
+	spec.Simulator.Drive.PulloutSpeed = 1.5 * spec.Drive.MaxSpeed
 	r, err := NewRig(RigOptions{Truth: spec})
 	if err != nil {
 		t.Fatal(err)

@@ -7,6 +7,8 @@ import (
 	"sync"
 
 	"periph.io/x/conn/v3/physic"
+
+	"github.com/tankd/tankd/controller/band"
 )
 
 // Errors the radio refuses with. The CAT servers turn each into the dialect's refusal.
@@ -86,33 +88,13 @@ func (v VFO) String() string {
 	return fmt.Sprintf("VFO(%d)", v)
 }
 
-// Band is a frequency range, both edges included.
-type Band struct {
-	Name      string
-	Low, High physic.Frequency
-}
+// Band is a frequency range, both edges included: controller/band's, the one table of the
+// amateur bands.
+type Band = band.Band
 
-// Contains reports whether f lies in the band.
-func (b Band) Contains(f physic.Frequency) bool { return f >= b.Low && f <= b.High }
-
-// HamBands returns the amateur HF allocations from 160 m to 10 m, each the widest of the three
-// ITU regions (from memory of the ITU Radio Regulations' table of allocations; 60 m is the
-// worldwide secondary allocation). A fresh slice each call, so callers may edit it.
-func HamBands() []Band {
-	k := physic.KiloHertz
-	return []Band{
-		{"160m", 1800 * k, 2000 * k},
-		{"80m", 3500 * k, 4000 * k},
-		{"60m", 5351500 * physic.Hertz, 5366500 * physic.Hertz},
-		{"40m", 7000 * k, 7300 * k},
-		{"30m", 10100 * k, 10150 * k},
-		{"20m", 14000 * k, 14350 * k},
-		{"17m", 18068 * k, 18168 * k},
-		{"15m", 21000 * k, 21450 * k},
-		{"12m", 24890 * k, 24990 * k},
-		{"10m", 28000 * k, 29700 * k},
-	}
-}
+// HamBands returns the amateur HF bands of controller/band, where the radio transmits by
+// default. A fresh slice each call, so callers may edit it.
+func HamBands() []Band { return band.All() }
 
 // Opts configure a Radio. Zero fields take the documented defaults.
 type Opts struct {

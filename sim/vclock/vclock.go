@@ -1,15 +1,13 @@
-// Package vclock is the simulator's virtual clock.
+// Package vclock is the simulator's virtual clock: controller/clock's Virtual clock, on which
+// time stands still until somebody sleeps, with the simulator's fixed Epoch and, as a test mode,
+// late wake-ups.
 //
-// Time stands still until somebody sleeps: Sleep advances the clock by the requested duration and
-// returns at once. A simulated tune therefore costs only the CPU time of its arithmetic, and the
-// same seed always gives the same run. The clock is meant to be driven by one goroutine at a time
-// (the controller's run loop); it is safe for concurrent use, but concurrent sleepers each advance
-// time on their own, which is not a discrete-event schedule.
-//
-// A clock made by NewJittered also wakes its sleepers late now and then, as a loaded computer's
+// A clock made by NewJittered wakes its sleepers late now and then, as a loaded computer's
 // scheduler does (see Lateness): a test mode for code that must not depend on waking on time.
+// A clock made by New is exactly a clock.Virtual.
 //
-// For the daemon's real-time demo, give the simulator controller/clock.Wall instead.
+// What the caller must do: drive a clock from one goroutine at a time, as clock.Virtual says;
+// for the daemon's real-time demo, give the simulator controller/clock.Wall instead.
 package vclock
 
 import (
@@ -17,23 +15,26 @@ import (
 	"fmt"
 	"sync"
 	"time"
+
+	"github.com/tankd/tankd/controller/clock"
 )
 
 // Epoch is where a new Clock starts unless told otherwise: a fixed instant, so that runs and
 // recordings are reproducible.
 var Epoch = time.Date(2026, time.January, 1, 0, 0, 0, 0, time.UTC)
 
-// Clock is a virtual clock. The zero value is not usable; call New.
+// Clock is a virtual clock (a clock.Virtual) whose sleeps may wake late. The zero value is not
+// usable; call New or NewJittered.
 type Clock struct {
-	mu  sync.Mutex
-	now time.Time
+	*clock.Virtual
+	mu sync.Mutex // guards late's random stream
 	// late draws the wake-up lateness; nil for an exact clock, whose Sleep must stay as cheap as
 	// it is: it is the benchmark's hot path.
 	late *drawer
 }
 
-// New returns a clock that reads start.
-func New(start time.Time) *Clock { return &Clock{now: start} }
+// New returns an exact clock that reads start.
+func New(start time.Time) *Clock { return &Clock{Virtual: clock.NewVirtual(start)} }
 
 // NewJittered returns a clock that reads start and whose sleeps wake late as l says. A zero l
 // gives the same clock as New.
@@ -48,40 +49,21 @@ func NewJittered(start time.Time, l Lateness) (*Clock, error) {
 	return c, nil
 }
 
-// Now implements clock.Clock.
-func (c *Clock) Now() time.Time {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	return c.now
-}
-
 // Sleep implements clock.Clock: it advances the clock by d and returns at once, unless ctx has
 // already ended. On a jittered clock a sleep of d > 0 may advance it further, by the lateness
 // drawn for this wake-up; like time.Sleep, a sleep of d <= 0 returns at once and is never late.
+// Advance (clock.Virtual's) is never late: it is how a test skips time on purpose, not
+// somebody waiting.
 func (c *Clock) Sleep(ctx context.Context, d time.Duration) error {
+	if c.late == nil || d <= 0 {
+		return c.Virtual.Sleep(ctx, d)
+	}
 	if err := ctx.Err(); err != nil {
 		return err
 	}
-	if c.late == nil || d <= 0 {
-		c.Advance(d)
-		return nil
-	}
 	c.mu.Lock()
-	c.now = c.now.Add(d + c.late.next())
+	late := c.late.next()
 	c.mu.Unlock()
+	c.Advance(d + late)
 	return nil
 }
-
-// Advance moves the clock forward by d; a negative d is ignored (time never runs backwards). It
-// is never late: it is how a test skips time on purpose, not somebody waiting.
-func (c *Clock) Advance(d time.Duration) {
-	if d <= 0 {
-		return
-	}
-	c.mu.Lock()
-	c.now = c.now.Add(d)
-	c.mu.Unlock()
-}
-
-// Since returns the virtual time elapsed since t.
-func (c *Clock) Since(t time.Time) time.Duration { return c.Now().Sub(t) }

@@ -1,8 +1,3 @@
-// Package capacitor models the loop's variable tuning capacitor: its capacitance over shaft
-// rotation (a linear law or a measured table), its travel (an air variable that turns freely and
-// repeats, or a multi-turn vacuum variable between hard end stops) and its temperature drift.
-//
-// Shaft positions are in turns from the minimum-capacitance position; capacitances in farads.
 package capacitor
 
 import (
@@ -66,6 +61,9 @@ type Capacitor struct {
 	scale float64   // len(grid)-1
 }
 
+// gridSize is how many points the law is resampled to: with 2,048 equal intervals the resampled
+// law strays from a table's corners by less than 1/2048 of the travel, far less than a measured
+// table is good to, and At stays a constant-time lookup on the simulator's hot path.
 const gridSize = 2049
 
 // New validates opts, reporting every problem at once, and prepares the law. Every comparison

@@ -1,4 +1,4 @@
-package sim
+package station
 
 import (
 	"math"
@@ -8,11 +8,12 @@ import (
 )
 
 func TestPriorSlopeMatchesFiniteDifference(t *testing.T) {
-	s := DefaultSpec()
-	p, err := NewPrior(s, 20, DefaultTolerance, 20)
+	d := DefaultDescription()
+	p, err := d.Prior(20)
 	if err != nil {
 		t.Fatal(err)
 	}
+	offset := d.Drive.BacklashSteps / 2 // 20 steps: the capacitor's minimum, up-approach side
 	f := 3750 * physic.KiloHertz
 	a, ok := p.Predict(f)
 	if !ok {
@@ -35,12 +36,12 @@ func TestPriorSlopeMatchesFiniteDifference(t *testing.T) {
 	// 30 MHz needs less than the capacitor's minimum: the prior says so by putting the dip
 	// below the shaft's minimum (the offset, 20 steps), far enough that its 3σ does not reach
 	// back into the travel, so that a controller refuses it without transmitting.
-	if q, ok := p.Predict(30 * physic.MegaHertz); !ok || q.Pos+3*q.Sigma >= 20 {
+	if q, ok := p.Predict(30 * physic.MegaHertz); !ok || q.Pos+3*q.Sigma >= offset {
 		t.Errorf("30 MHz is beyond the capacitor's range; the prior says %+v, %v", q, ok)
 	}
 	// and 1 MHz needs more than its maximum: beyond the end of the travel
-	span := s.Capacitor.SpanTurns * s.StepsPerTurn()
-	if q, ok := p.Predict(1 * physic.MegaHertz); !ok || q.Pos-3*q.Sigma <= 20+span {
-		t.Errorf("1 MHz is beyond the capacitor's range; the prior says %+v, %v (travel ends at %.0f)", q, ok, 20+span)
+	span := d.Capacitor.SpanTurns * d.StepsPerTurn()
+	if q, ok := p.Predict(1 * physic.MegaHertz); !ok || q.Pos-3*q.Sigma <= offset+span {
+		t.Errorf("1 MHz is beyond the capacitor's range; the prior says %+v, %v (travel ends at %.0f)", q, ok, offset+span)
 	}
 }
