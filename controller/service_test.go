@@ -1,264 +1,237 @@
 package controller_test
 
 import (
-	"context"
 	"errors"
-	"path/filepath"
 	"testing"
-	"time"
-
-	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
+	"github.com/tankd/tankd/controller/internal/fakeloop"
 	"github.com/tankd/tankd/controller/memmap"
+	"github.com/tankd/tankd/controller/statedir"
 	"github.com/tankd/tankd/controller/tune"
-	"github.com/tankd/tankd/sim"
-	"github.com/tankd/tankd/sim/bench"
 )
 
-// outcome is a result and the hardware's state when it was reported.
-type outcome struct {
-	tune.Result
-	moving, keyed bool
-}
-
-// newService builds a service on the demo station, with the given observer and a channel
-// that receives every result.
-func newService(t *testing.T, o controller.Options) (*controller.Service, *bench.Rig, chan outcome) {
-	t.Helper()
-	r, err := bench.NewRig(bench.RigOptions{Truth: sim.DefaultSpec()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	results := make(chan outcome, 16)
-	o.OnResult = func(res tune.Result) {
-		results <- outcome{res, r.Axis.Snapshot().Moving, r.Station.Radio.Transmitting()}
-	}
-	d := tune.Deps{Axis: r.Axis, Sensor: r.Station.Sensor(), Clock: r.Clock, Map: r.Map,
-		Transmitter: r.Station.Radio, Thermometer: r.Station.Thermometer()}
-	s, err := controller.NewService(d, tune.Options{Transmit: true, NominalBacklash: 64}, o)
-	if err != nil {
-		t.Fatal(err)
-	}
-	return s, r, results
-}
-
-// next waits for the service's next result; the timeout is only a safety net for a broken
-// service (the virtual clock makes every operation take microseconds of real time).
-func next(t *testing.T, results chan outcome) outcome {
-	t.Helper()
-	select {
-	case res := <-results:
-		return res
-	case <-time.After(30 * time.Second):
-		t.Fatal("no result from the service")
-		return outcome{}
-	}
-}
-
-func start(t *testing.T, s *controller.Service) (stop func()) {
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- s.Run(ctx) }()
-	return func() {
-		cancel()
-		if err := <-done; err != nil {
-			t.Errorf("Run: %v", err)
-		}
-	}
-}
-
+// The operator turns the VFO while the first tune is sweeping through the dip, and a tune at
+// the new frequency is asked for: the first ends aborted with the carrier off and the motor at
+// rest, the second tunes.
 func TestNewFrequencyCancelsRunningTune(t *testing.T) {
-	var s *controller.Service
-	var r *bench.Rig
-	f1, f2 := 3750*physic.KiloHertz, 3700*physic.KiloHertz
-	submitted := false
-	// The operator turns the VFO while the first tune is sweeping through the dip.
-	obs := tune.ObserverFunc(func(e tune.Event) {
-		if e.Kind == tune.KindState && e.State == tune.Refining && e.Freq == f1 && !submitted {
-			submitted = true
-			if err := r.Station.Radio.SetFrequency(f2); err != nil {
-				t.Error(err)
-			}
-			if err := s.Submit(controller.Request{Kind: controller.Tune, Freq: f2}); err != nil {
-				t.Error(err)
-			}
+	r := newRig(t, rigOptions{})
+	f1, f2 := f80, f80b
+	var second controller.RequestID
+	r.loop.Sensor.OnRead(until(func() bool {
+		sn := r.s.Snapshot()
+		if sn.State != tune.Refining || sn.Freq != f1 {
+			return false
 		}
-	})
-	var results chan outcome
-	s, r, results = newService(t, controller.Options{Observer: obs})
-	stop := start(t, s)
-	defer stop()
-	if err := r.Station.Radio.SetFrequency(f1); err != nil {
-		t.Fatal(err)
+		r.loop.Radio.SetFrequency(f2)
+		second = r.submit(t, controller.Request{Kind: controller.Tune, Freq: f2})
+		return true
+	}))
+	r.start(t)
+	r.loop.Radio.SetFrequency(f1)
+	first := r.wait(t, r.submit(t, controller.Request{Kind: controller.Tune, Freq: f1}))
+	if first.Result == nil || first.Result.Outcome != tune.Aborted || first.Result.Freq != f1 {
+		t.Fatalf("first request %s with %+v, want aborted at %v", first.State, first.Result, f1)
 	}
-	if err := s.Submit(controller.Request{Kind: controller.Tune, Freq: f1}); err != nil {
-		t.Fatal(err)
+	if first.State != controller.RequestCancelled || first.By != second {
+		t.Fatalf("first request %s by %d, want cancelled by %d", first.State, first.By, second)
 	}
-	first := next(t, results)
-	if first.Outcome != tune.Aborted || first.Freq != f1 {
-		t.Fatalf("first result %s at %v, want aborted at %v", first.Outcome, first.Freq, f1)
-	}
-	if first.moving || first.keyed {
+	if h := r.hardware(first.ID); h.moving || h.keyed {
 		t.Fatal("an aborted tune left the motor running or the carrier on")
 	}
-	second := next(t, results)
-	if second.Outcome != tune.Tuned || second.Freq != f2 {
-		t.Fatalf("second result %s at %v (%v), want tuned at %v", second.Outcome, second.Freq, second.Err, f2)
+	st := r.wait(t, second)
+	if st.Result == nil || st.Result.Outcome != tune.Tuned || st.Result.Freq != f2 {
+		t.Fatalf("second request: %+v, want tuned at %v", st.Result, f2)
 	}
-	snap := s.Snapshot()
-	if snap.Last == nil || snap.Last.Freq != f2 || snap.Busy || snap.State != tune.Idle || snap.MapPoints != 1 {
+	snap := r.s.Snapshot()
+	if snap.Last == nil || snap.Last.Freq != f2 || snap.Busy || snap.State != tune.Idle || snap.MapPoints != 1 || snap.LastRequest != second {
 		t.Fatalf("snapshot after the tune: %+v", snap)
 	}
 }
 
 func TestFollowPrepositionsWithoutRF(t *testing.T) {
-	s, r, results := newService(t, controller.Options{})
-	stop := start(t, s)
-	defer stop()
-	f := 3750 * physic.KiloHertz
-	if err := s.Submit(controller.Request{Kind: controller.Follow, Freq: f}); err != nil {
-		t.Fatal(err)
-	}
-	res := next(t, results)
-	if res.Outcome != tune.Positioned || res.RFTime != 0 || r.Station.Coupler.Reads() != 0 {
-		t.Fatalf("follow: %s, RF %v, %d coupler reads; want positioned with no RF at all", res.Outcome, res.RFTime, r.Station.Coupler.Reads())
+	r := newRig(t, rigOptions{})
+	r.start(t)
+	_, res := r.run(t, controller.Request{Kind: controller.Follow, Freq: f80})
+	if res.Outcome != tune.Positioned || res.RFTime != 0 || r.loop.Sensor.Reads() != 0 || r.loop.Radio.Keys() != 0 {
+		t.Fatalf("follow: %s, RF %v, %d coupler reads, %d keys; want positioned with no RF at all",
+			res.Outcome, res.RFTime, r.loop.Sensor.Reads(), r.loop.Radio.Keys())
 	}
 }
 
+// What a calibration learns is on disk as soon as the request is done, not only at shutdown;
+// on the way out the axis is halted and the clean stop is there for the daemon to record.
 func TestServicePersistsAndShutsDown(t *testing.T) {
-	dir := t.TempDir()
-	mapPath, calPath := filepath.Join(dir, "loop.map"), filepath.Join(dir, "backlash")
-	s, r, results := newService(t, controller.Options{MapPath: mapPath, CalibrationPath: calPath})
-	stop := start(t, s)
-	f := 3750 * physic.KiloHertz
-	if err := r.Station.Radio.SetFrequency(f); err != nil {
+	dir, err := statedir.Open(t.TempDir(), statedir.Options{})
+	if err != nil {
 		t.Fatal(err)
 	}
-	if err := s.Submit(controller.Request{Kind: controller.Calibrate, Freq: f}); err != nil {
+	defer dir.Close()
+	l, err := fakeloop.New(fakeloop.Options{})
+	if err != nil {
 		t.Fatal(err)
 	}
-	res := next(t, results)
+	st, err := controller.LoadState(dir, controller.StateOptions{Map: memmap.Options{Prior: l.Prior}, Clock: l.Clock})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := newRig(t, rigOptions{svc: controller.Options{State: st}})
+	stop := r.start(t)
+	if _, ok := r.s.CleanStop(); ok {
+		t.Fatal("a clean stop before Run has returned")
+	}
+	_, res := r.run(t, controller.Request{Kind: controller.Calibrate, Freq: f80})
 	if res.Outcome != tune.Calibrated {
 		t.Fatalf("calibrate: %s (%v)", res.Outcome, res.Err)
 	}
-	// What was learned is on disk at once, not only at shutdown.
-	m, err := memmap.Load(mapPath, memmap.Options{})
+	m, err := memmap.Load(dir.MapPath(), memmap.Options{})
 	if err != nil || m.Len() != 1 {
 		t.Fatalf("map on disk after the calibration: %v points, %v", m, err)
 	}
-	c, err := tune.LoadCalibration(calPath)
-	if err != nil || c.Backlash != res.Backlash || c.Freq != f {
-		t.Fatalf("calibration on disk: %+v, %v; want backlash %d at %v", c, err, res.Backlash, f)
+	c, err := tune.LoadCalibration(dir.CalibrationPath())
+	if err != nil || c.Backlash != res.Backlash || c.Freq != f80 {
+		t.Fatalf("calibration on disk: %+v, %v; want backlash %d at %v", c, err, res.Backlash, f80)
 	}
 	stop()
-	if st := r.Axis.Snapshot(); st.Enabled || st.Moving {
-		t.Fatalf("after shutdown the axis is %+v, want halted", st)
+	select {
+	case <-r.s.Done():
+	default:
+		t.Fatal("Done not closed after Run returned")
+	}
+	if a := r.ax.Snapshot(); a.Enabled || a.Moving {
+		t.Fatalf("after shutdown the axis is %+v, want halted", a)
+	}
+	mk, ok := r.s.CleanStop()
+	if !ok || mk.Position != r.ax.Position() || !mk.Trusted {
+		t.Fatalf("clean stop %+v (ok %v), want the trusted position %d", mk, ok, r.ax.Position())
+	}
+	if _, err := r.s.Submit(controller.Request{Kind: controller.Preposition, Freq: f80, Source: controller.SourceAPI}); !errors.Is(err, controller.ErrStopped) {
+		t.Fatalf("submit after Run returned: %v, want ErrStopped", err)
 	}
 }
 
 func TestSubmitRejectsBadRequests(t *testing.T) {
-	s, _, _ := newService(t, controller.Options{})
-	for _, r := range []controller.Request{{Kind: controller.Tune}, {Kind: "dance"}, {Kind: controller.Follow, Freq: -1}} {
-		if err := s.Submit(r); err == nil {
-			t.Errorf("accepted %+v", r)
+	r := newRig(t, rigOptions{})
+	lo, hi := r.ax.SoftLimits()
+	for _, q := range []controller.Request{
+		{Kind: controller.Tune, Source: controller.SourceAPI},
+		{Kind: "dance", Source: controller.SourceAPI},
+		{Kind: controller.Follow, Freq: -1, Source: controller.SourceRadio},
+		{Kind: controller.Follow, Freq: f80},                                // no source
+		{Kind: controller.Follow, Freq: f80, Source: "neighbour"},           // no such source
+		{Kind: controller.Goto, Step: lo - 1, Source: controller.SourceAPI}, // outside the soft limits
+		{Kind: controller.Goto, Step: hi + 1, Source: controller.SourceAPI},
+		{Kind: controller.Home, Source: controller.SourceAPI}, // the rig's loop has no home switch
+	} {
+		if id, err := r.s.Submit(q); err == nil {
+			t.Errorf("accepted %+v as request %d", q, id)
 		}
 	}
-	if err := s.Submit(controller.Request{Kind: controller.Stop}); err != nil {
-		t.Errorf("stop: %v", err)
+	r.submit(t, controller.Request{Kind: controller.Goto, Step: (lo + hi) / 2})
+	if id, err := r.s.Submit(controller.Request{Kind: controller.Stop, Source: controller.SourceOperator}); err != nil || id == 0 {
+		t.Errorf("stop: %d, %v", id, err)
 	}
-	if p := s.Snapshot().Pending; p != nil {
-		t.Errorf("a stop left %+v pending", p)
+	if q := r.s.Snapshot().Queue; len(q) != 0 {
+		t.Errorf("a stop left %+v waiting", q)
 	}
 }
 
-// A panic anywhere in an operation (here in an observer, in the middle of the fine sweep, with
-// the carrier on) does not take the service down: the carrier is dropped, the motor stopped, a
-// fault latched and shown in the snapshot, every request refused until a reset, and after the
-// reset the service tunes again. A panic in the code that runs after an operation (here the
-// result callback) is latched the same way.
+// A panic anywhere in an operation (here in the coupler's driver, in the middle of the fine
+// sweep, with the carrier on) does not take the service down: the carrier is dropped, the motor
+// stopped, a fault latched and shown in the snapshot, every request refused until a reset, and
+// after the reset the service tunes again.
 func TestServiceSurvivesPanics(t *testing.T) {
-	f := 3750 * physic.KiloHertz
-	panicAt := tune.Refining
-	obs := tune.ObserverFunc(func(e tune.Event) {
-		if e.Kind == tune.KindState && e.State == panicAt {
-			panicAt = ""
-			panic("injected: an observer bug")
+	r := newRig(t, rigOptions{})
+	armed := true
+	r.loop.Sensor.OnRead(func() {
+		if armed && r.s.Snapshot().State == tune.Refining {
+			armed = false
+			panic("injected: a driver bug")
 		}
 	})
-	s, r, results := newService(t, controller.Options{Observer: obs})
-	stop := start(t, s)
-	defer stop()
-	if err := r.Station.Radio.SetFrequency(f); err != nil {
-		t.Fatal(err)
-	}
-	submit := func(k controller.Kind) outcome {
-		t.Helper()
-		if err := s.Submit(controller.Request{Kind: k, Freq: f}); err != nil {
-			t.Fatal(err)
-		}
-		return next(t, results)
-	}
-	res := submit(controller.Tune)
+	r.start(t)
+	r.loop.Radio.SetFrequency(f80)
+	st, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80})
 	if res.Outcome != tune.Fault || !errors.Is(res.Err, tune.ErrInternal) {
 		t.Fatalf("the panicking tune: %s (%v), want a fault", res.Outcome, res.Err)
 	}
-	if res.moving || res.keyed {
+	if h := r.hardware(st.ID); h.moving || h.keyed {
 		t.Fatal("the panic left the motor running or the carrier on")
 	}
-	if snap := s.Snapshot(); snap.Fault == "" || snap.State != tune.Faulted {
+	if snap := r.s.Snapshot(); snap.Fault == "" || snap.State != tune.Faulted {
 		t.Fatalf("snapshot after the panic: fault %q, state %s", snap.Fault, snap.State)
 	}
-	if res := submit(controller.Tune); res.Outcome != tune.Fault || r.Station.Radio.Transmitting() {
+	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Fault || r.loop.Radio.Transmitting() {
 		t.Fatalf("a tune with the fault latched: %s", res.Outcome)
 	}
-	if res := submit(controller.Reset); res.Outcome != tune.Reset {
+	if _, res := r.run(t, controller.Request{Kind: controller.Reset}); res.Outcome != tune.Reset {
 		t.Fatalf("reset: %s (%v)", res.Outcome, res.Err)
 	}
-	if res := submit(controller.Tune); res.Outcome != tune.Tuned {
+	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
 		t.Fatalf("after the reset: %s (%v)", res.Outcome, res.Err)
 	}
-	if snap := s.Snapshot(); snap.Fault != "" {
+	if snap := r.s.Snapshot(); snap.Fault != "" {
 		t.Fatalf("fault %q still shown after the reset", snap.Fault)
 	}
 }
 
+// A panic in the code that runs after an operation (here the daemon's hook) is latched the same
+// way: the next operation is refused as a fault, and the snapshot shows it.
 func TestServiceSurvivesAPanicAfterAnOperation(t *testing.T) {
-	f := 3750 * physic.KiloHertz
-	done := make(chan tune.Result, 4)
 	first := true
-	r, err := bench.NewRig(bench.RigOptions{Truth: sim.DefaultSpec()})
-	if err != nil {
-		t.Fatal(err)
+	r := newRig(t, rigOptions{svc: controller.Options{AfterOperation: func(controller.RequestStatus) {
+		if first {
+			first = false
+			panic("injected: a bug after the operation")
+		}
+	}}})
+	r.start(t)
+	r.loop.Radio.SetFrequency(f80)
+	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
+		t.Fatalf("the first tune: %s (%v)", res.Outcome, res.Err)
 	}
-	s2, err := controller.NewService(tune.Deps{Axis: r.Axis, Sensor: r.Station.Sensor(), Clock: r.Clock, Map: r.Map,
-		Transmitter: r.Station.Radio}, tune.Options{Transmit: true, NominalBacklash: 64},
-		controller.Options{OnResult: func(res tune.Result) {
-			done <- res
-			if first {
-				first = false
-				panic("injected: a bug after the operation")
-			}
-		}})
-	if err != nil {
-		t.Fatal(err)
-	}
-	stop := start(t, s2)
-	defer stop()
-	if err := r.Station.Radio.SetFrequency(f); err != nil {
-		t.Fatal(err)
-	}
-	if err := s2.Submit(controller.Request{Kind: controller.Tune, Freq: f}); err != nil {
-		t.Fatal(err)
-	}
-	<-done
-	if err := s2.Submit(controller.Request{Kind: controller.Tune, Freq: f}); err != nil {
-		t.Fatal(err)
-	}
-	if res := <-done; res.Outcome != tune.Fault {
+	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Fault {
 		t.Fatalf("after a panic outside the operation: %s, want the fault latched", res.Outcome)
 	}
-	if s2.Snapshot().Fault == "" {
+	if r.s.Snapshot().Fault == "" {
 		t.Fatal("no fault shown")
+	}
+}
+
+// The service's tuner observer is its own: listeners subscribe.
+func TestNewServiceRefusesAnObserver(t *testing.T) {
+	r := newRig(t, rigOptions{})
+	m, err := memmap.New(memmap.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, err = controller.NewService(tune.Deps{Axis: r.ax, Sensor: r.loop.Sensor, Clock: r.loop.Clock, Map: m,
+		Observer: tune.ObserverFunc(func(tune.Event) {})}, tune.Options{}, controller.Options{})
+	if err == nil {
+		t.Fatal("a service built with an observer of the caller's")
+	}
+}
+
+// Goto moves to a step with no RF; Reference declares where the motor is; both are refused
+// where they must be.
+func TestGotoAndReference(t *testing.T) {
+	r := newRig(t, rigOptions{})
+	r.start(t)
+	st, res := r.run(t, controller.Request{Kind: controller.Goto, Step: 30000})
+	if res.Outcome != tune.Positioned || r.ax.Position() != 30000 || res.Pos != 30000 || r.loop.Radio.Keys() != 0 {
+		t.Fatalf("goto 30000: %s at %d (axis %d), %d keys", res.Outcome, res.Pos, r.ax.Position(), r.loop.Radio.Keys())
+	}
+	// The approach ends moving up with the play taken up: the shaft trails the motor by half
+	// the fake's 40-step play.
+	if sh := r.loop.Drive.Shaft(); sh != 30000-20 {
+		t.Fatalf("goto %d left the shaft at %.1f, want 29980 (approached from below)", st.Request.Step, sh)
+	}
+	_, res = r.run(t, controller.Request{Kind: controller.Reference, Step: 12345})
+	if res.Outcome != tune.Referenced || r.ax.Position() != 12345 || !r.ax.Trusted() {
+		t.Fatalf("reference 12345: %s, axis at %d (trusted %v)", res.Outcome, r.ax.Position(), r.ax.Trusted())
+	}
+	r.ax.Distrust("test: the position is lost")
+	if _, res := r.run(t, controller.Request{Kind: controller.Goto, Step: 20000}); res.Outcome != tune.NeedsReference {
+		t.Fatalf("goto with the position lost: %s (%v), want needs-reference", res.Outcome, res.Err)
 	}
 }

@@ -20,16 +20,13 @@ import (
 	"os/signal"
 	"path/filepath"
 	"strconv"
-	"strings"
+	"sync"
 	"syscall"
-	"time"
 
 	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/clock"
-	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/statedir"
-	"github.com/tankd/tankd/controller/store"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim"
 	"github.com/tankd/tankd/sim/radio"
@@ -161,31 +158,26 @@ func serve(ctx context.Context, o options, log *slog.Logger) (err error) {
 	if err != nil {
 		return err
 	}
-	stoppedCleanly := false
 	defer func() {
 		if err := ax.Halt(); err != nil {
 			log.Error("halt the motor", "err", err)
-			stoppedCleanly = false
 		}
 		if err := st.SaveHardware(hwPath); err != nil {
 			log.Error("simulated hardware state not saved", "err", err)
-		}
-		if !stoppedCleanly {
-			log.Warn("no clean-stop marker written: the next start will find the position again")
-			return
-		}
-		a := ax.Snapshot()
-		m := statedir.Marker{Position: a.Position, Trusted: a.Trusted && a.Fault == "", At: clk.Now(), Reason: "stopped"}
-		if werr := dir.WriteMarker(m); werr != nil {
-			log.Error("clean-stop marker not written", "err", werr)
-		} else {
-			log.Info("clean stop recorded", "position", m.Position, "trusted", m.Trusted)
 		}
 	}()
 	if err := ax.Enable(ctx); err != nil {
 		return err
 	}
-	switch hint, hinted, herr := dir.Hint(); {
+	mo, err := spec.MapOptions()
+	if err != nil {
+		return err
+	}
+	state, err := controller.LoadState(dir, controller.StateOptions{Map: mo, Clock: clk, Logger: log})
+	if err != nil {
+		return err
+	}
+	switch hint, hinted := state.Hint(); {
 	case clean && marker.Trusted:
 		ax.Reference(marker.Position)
 	case hinted:
@@ -194,52 +186,12 @@ func serve(ctx context.Context, o options, log *slog.Logger) (err error) {
 		ax.Reference(hint.Position)
 		ax.Distrust("no clean stop recorded; last known near " + strconv.FormatInt(hint.Position, 10))
 	default:
-		if herr != nil {
-			log.Warn("position hint unreadable", "err", herr)
-		}
 		ax.Distrust("no clean stop recorded")
 	}
-	mo, err := spec.MapOptions()
-	if err != nil {
-		return err
-	}
-	var notices []string
-	mm, err := memmap.Load(dir.MapPath(), mo)
-	switch {
-	case err == nil:
-	case errors.Is(err, store.ErrUsedPrevious):
-		log.Warn("memory map: the last save was damaged; using the copy before it", "err", err)
-	case errors.Is(err, store.ErrCorrupt):
-		aside, aerr := store.SetAside(dir.MapPath(), time.Now())
-		if aerr != nil {
-			return fmt.Errorf("memory map damaged, and could not be set aside: %w (%w)", err, aerr)
-		}
-		n := fmt.Sprintf("the memory map was damaged beyond repair and has been set aside as %s: starting with an empty map", strings.Join(aside, ", "))
-		log.Error("MEMORY MAP LOST: "+n, "err", err)
-		notices = append(notices, n)
-		if mm, err = memmap.New(mo); err != nil {
-			return err
-		}
-	default:
-		return fmt.Errorf("memory map: %w", err)
-	}
-	log.Info("memory map", "path", dir.MapPath(), "points", mm.Len())
-	// After every operation: where the motor stands now, for a start after a crash, and the
-	// simulated hardware's state, each written only when it changed (SD cards wear).
-	lastHint, lastHW := int64(math.MinInt64), int64(math.MinInt64)
-	after := func() {
-		a := ax.Snapshot()
-		if a.Moving {
-			return
-		}
-		if a.Position != lastHint {
-			m := statedir.Marker{Position: a.Position, Trusted: a.Trusted && a.Fault == "", At: clk.Now(), Reason: "after an operation"}
-			if err := dir.WriteHint(m); err != nil {
-				log.Warn("position hint not saved", "err", err)
-			} else {
-				lastHint = a.Position
-			}
-		}
+	// After every operation, with the motor at rest: the simulated hardware's state, written
+	// only when it changed (SD cards wear). The service writes its own files.
+	lastHW := int64(math.MinInt64)
+	saveHW := func(controller.RequestStatus) {
 		if p := st.Mech.MotorPosition(); p != lastHW {
 			if err := st.SaveHardware(hwPath); err != nil {
 				log.Warn("simulated hardware state not saved", "err", err)
@@ -249,25 +201,17 @@ func serve(ctx context.Context, o options, log *slog.Logger) (err error) {
 		}
 	}
 	to := spec.TunerOptions(tune.Options{Transmit: true, Logger: log}, nominal)
-	calPath := dir.CalibrationPath()
-	svc, err := controller.NewService(tune.Deps{Axis: ax, Sensor: st.Sensor(), Clock: clk, Map: mm,
-		Transmitter: st.Radio, Thermometer: st.Thermometer(), Observer: logEvents(log)},
-		to, controller.Options{AutoTune: o.autoTune, MapPath: dir.MapPath(), CalibrationPath: calPath, Logger: log,
-			Notices: notices, OnResult: func(tune.Result) { after() }})
+	svc, err := controller.NewService(tune.Deps{Axis: ax, Sensor: st.Sensor(), Clock: clk,
+		Transmitter: st.Radio, Thermometer: st.Thermometer()},
+		to, controller.Options{AutoTune: o.autoTune, State: state, AfterOperation: saveHW, Logger: log})
 	if err != nil {
 		return err
 	}
-	switch c, err := tune.LoadCalibration(calPath); {
-	case err == nil || errors.Is(err, store.ErrUsedPrevious):
-		svc.Tuner().UseBacklash(c.Backlash)
-		log.Info("backlash calibration", "steps", c.Backlash, "measured", c.At)
-	case errors.Is(err, fs.ErrNotExist):
-		log.Info("no backlash calibration yet: the first tune measures it")
-	case errors.Is(err, store.ErrCorrupt):
-		aside, aerr := store.SetAside(calPath, time.Now())
-		log.Error("backlash calibration damaged: set aside, measuring again", "err", err, "aside", aside, "aside_err", aerr)
-	default:
-		log.Warn("backlash calibration unreadable: measuring again", "err", err)
+	// The simulated radio speaks only when something changes: its silence says nothing of a
+	// dead link, so its frequency is never marked stale. The service drives the follower.
+	fl, err := controller.NewFollower(svc, controller.FollowOptions{StaleAfter: -1, Logger: log})
+	if err != nil {
+		return err
 	}
 	pt, path, err := radio.OpenPTY()
 	if err != nil {
@@ -278,83 +222,95 @@ func serve(ctx context.Context, o options, log *slog.Logger) (err error) {
 		"try", fmt.Sprintf("printf 'FA00003700000;' > %s", path))
 	log.Warn("simulated station: the RF here is imaginary, but a real loop carries kilovolts; read the safety notes in README.md")
 
+	events := svc.Subscribe(1024)
 	sub := st.Radio.Subscribe(16)
 	defer sub.Close()
-	done := make(chan struct{})
-	var runErr error
+	var wg sync.WaitGroup
+	defer wg.Wait()
+	wg.Add(3)
 	go func() {
-		defer close(done)
-		runErr = svc.Run(ctx)
+		defer wg.Done()
+		logEvents(log, events) // until the subscription is closed
 	}()
-	catDone := make(chan struct{})
+	runDone := make(chan error, 1)
 	go func() {
-		defer close(catDone)
+		defer wg.Done()
+		runDone <- svc.Run(ctx)
+	}()
+	go func() {
+		defer wg.Done()
 		if err := st.Radio.ServeASCII(ctx, pt, radio.ASCIIOpts{}); err != nil && !errors.Is(err, context.Canceled) {
 			log.Error("simulated CAT link", "err", err)
 		}
 	}()
-	// The loop starts tuned to the radio's frequency; then it follows the radio.
-	calibrated := svc.Tuner().Calibrated()
-	first := controller.Request{Kind: controller.Follow, Freq: st.Radio.Frequency()}
-	if !calibrated && o.autoTune {
-		first.Kind = controller.Calibrate
+	// The loop starts calibrated (once) and tuned to the radio's frequency; then it follows
+	// the radio.
+	if !svc.Tuner().Calibrated() && o.autoTune {
+		if _, err := svc.Submit(controller.Request{Kind: controller.Calibrate, Source: controller.SourceOperator, Freq: st.Radio.Frequency()}); err != nil {
+			return err
+		}
 	}
-	if err := svc.Submit(first); err != nil {
-		return err
-	}
+	fl.Update(st.Radio.Frequency(), controller.SourceRadio)
 	// SIGHUP clears a latched fault, as an operator's reset (the position stays untrusted).
 	hup := make(chan os.Signal, 1)
 	signal.Notify(hup, syscall.SIGHUP)
 	defer signal.Stop(hup)
-	last := st.Radio.Frequency()
 	for {
 		select {
 		case <-ctx.Done():
-			<-done
-			<-catDone
-			stoppedCleanly = runErr == nil
+			runErr := <-runDone
+			events.Close()
+			if m, ok := svc.CleanStop(); ok {
+				if werr := dir.WriteMarker(m); werr != nil {
+					log.Error("clean-stop marker not written", "err", werr)
+				} else {
+					log.Info("clean stop recorded", "position", m.Position, "trusted", m.Trusted)
+				}
+			} else {
+				log.Warn("no clean-stop marker written: the next start will find the position again")
+			}
 			return runErr
 		case <-hup:
 			log.Warn("SIGHUP: resetting a latched fault")
-			if err := svc.Submit(controller.Request{Kind: controller.Reset}); err != nil {
+			if _, err := svc.Submit(controller.Request{Kind: controller.Reset, Source: controller.SourceOperator}); err != nil {
 				log.Error("reset", "err", err)
 			}
 		case ev := <-sub.Events():
-			// Every change of frequency is followed, with the carrier on too: the tuner's own
-			// carrier does not move the VFO, so a change while transmitting is the operator's
-			// (or a logger's), and the tune in progress must end.
-			f := ev.State.Frequency()
-			if f == last {
-				continue
-			}
-			last = f
-			if err := svc.Submit(controller.Request{Kind: controller.Follow, Freq: f}); err != nil {
-				log.Warn("frequency not followed", "freq", f, "err", err)
-			}
+			// Every report is the follower's to judge: the tuner's own carrier, a move within
+			// the tuned window, a band change, a knob still turning.
+			fl.Update(ev.State.Frequency(), controller.SourceRadio)
 		}
 	}
 }
 
-// logEvents writes the tuner's stages to the log (readings only at debug level).
-func logEvents(log *slog.Logger) tune.Observer {
+// logEvents writes the service's events to the log (readings only at debug level) until the
+// subscription is closed.
+func logEvents(log *slog.Logger, sub *controller.Subscription) {
 	l := log.With("component", "tune")
-	return tune.ObserverFunc(func(e tune.Event) {
+	for ev := range sub.Events() {
+		if ev.Kind != controller.EventTune {
+			continue
+		}
+		e := ev.Tune
 		switch e.Kind {
 		case tune.KindReading:
-			l.Debug("reading", "stage", e.Stage, "pos", e.Pos, "swr", e.SWR, "forward", e.Forward)
+			l.Debug("reading", "stage", e.Stage, "pos", e.Pos, "swr", e.SWR, "forward", e.Forward, "req", ev.Request)
 		case tune.KindState:
-			l.Info("state", "to", e.State, "freq", e.Freq)
+			l.Info("state", "to", e.State, "freq", e.Freq, "req", ev.Request)
 		case tune.KindPrediction:
-			l.Info("prediction", "source", e.Prediction.Source, "pos", e.Prediction.Pos, "sigma", e.Prediction.Sigma)
+			l.Info("prediction", "source", e.Prediction.Source, "pos", e.Prediction.Pos, "sigma", e.Prediction.Sigma, "req", ev.Request)
 		case tune.KindFit:
-			l.Info("fit", "method", e.Fit.Method, "centre", e.Fit.Centre, "q_loaded", e.Fit.QLoaded, "bandwidth_hz", e.Fit.Bandwidth, "min_swr", e.Fit.MinSWR)
+			l.Info("fit", "method", e.Fit.Method, "centre", e.Fit.Centre, "q_loaded", e.Fit.QLoaded, "bandwidth_hz", e.Fit.Bandwidth, "min_swr", e.Fit.MinSWR, "req", ev.Request)
 		case tune.KindResult:
 			r := e.Result
-			l.Info("done", "outcome", r.Outcome, "freq", r.Freq, "pos", r.Pos, "swr", r.SWR, "took", r.Duration(), "rf", r.RFTime)
+			l.Info("done", "outcome", r.Outcome, "freq", r.Freq, "pos", r.Pos, "swr", r.SWR, "took", r.Duration(), "rf", r.RFTime, "req", ev.Request)
 		case tune.KindMove:
-			l.Debug("move", "stage", e.Stage, "from", e.Pos, "to", e.Target)
+			l.Debug("move", "stage", e.Stage, "from", e.Pos, "to", e.Target, "req", ev.Request)
 		default:
-			l.Info(string(e.Kind), "text", e.Text, "pos", e.Pos)
+			l.Info(string(e.Kind), "text", e.Text, "pos", e.Pos, "req", ev.Request)
 		}
-	})
+	}
+	if n := sub.Dropped(); n > 0 {
+		l.Warn("events not logged: the log fell behind", "dropped", n)
+	}
 }

@@ -45,7 +45,7 @@ func TestDaemonFollowsTheRadio(t *testing.T) {
 		t.Fatalf("calibration after the run: %+v, %v; want the demo's 40 steps", c, err)
 	}
 	lines, stop = startDaemon(t, options{state: state, autoTune: true, virtual: true, level: slog.LevelInfo})
-	wait(t, lines, regexp.MustCompile(`msg="backlash calibration" steps=40`))
+	wait(t, lines, regexp.MustCompile(`msg="backlash calibration" component=state steps=40`))
 	wait(t, lines, regexp.MustCompile(`msg=prediction component=tune source=map`))
 	wait(t, lines, regexp.MustCompile(`outcome=tuned freq=3.750MHz`))
 	stop()

@@ -16,12 +16,9 @@ import (
 
 const module = "github.com/tankd/tankd"
 
-// importExceptions are files outside sim/ and cmd/ allowed to import the simulator for now, each
-// with the reason. The service's end-to-end tests run on the bench's rig until they have a rig
-// of their own.
-var importExceptions = map[string]string{
-	"controller/service_test.go": "the service's end-to-end tests drive sim/bench's rig",
-}
+// importExceptions are files outside sim/ and cmd/ allowed to import the simulator, each with
+// the reason; none today (the controller's tests run on controller/internal/fakeloop).
+var importExceptions = map[string]string{}
 
 // The controller, the drivers and everything else a real installation runs must not need the
 // simulator: no package outside sim/ and cmd/ may import anything under sim/, in its code or its

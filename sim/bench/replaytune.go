@@ -9,6 +9,7 @@ import (
 
 	"periph.io/x/conn/v3/physic"
 
+	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/record"
@@ -72,27 +73,25 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 		return nil, err
 	}
 	nominal := desc.NominalBacklash()
-	axOpts := desc.AxisOptions(nominal)
-	// The recording's positions are the recorder's own count, not this description's travel:
-	// the soft limits are the recording's span, with room for a run-up past the play either side.
-	axOpts.Min, axOpts.Max = min(lo, start)-nominal-replayLimitMargin, hi+nominal+replayLimitMargin
-	ax, err := motion.NewAxis(rp, clk, motion.Switches{}, axOpts)
+	a, err := controller.Assemble(context.Background(), desc,
+		controller.Resources{Clock: clk, Drive: rp, Sensor: rp, Transmitter: carrier{rp}},
+		controller.AssembleOptions{
+			Tune: tune.Options{Transmit: true}, Observer: obs,
+			// The recording's positions are the recorder's own count, not this description's
+			// travel: the soft limits are the recording's span, with room for a run-up past the
+			// play either side; the map is told where the dip is, give or take.
+			AdjustAxis: func(ao *motion.Options) {
+				ao.Min, ao.Max = min(lo, start)-nominal-replayLimitMargin, hi+nominal+replayLimitMargin
+			},
+			AdjustMap: func(mo *memmap.Options) {
+				*mo = memmap.Options{Prior: fixedPrior{f0: f, pos: float64(best) + offset, sigma: sigma, slope: slope, q: q}}
+			},
+		})
 	if err != nil {
 		return nil, err
 	}
-	if err := ax.Enable(context.Background()); err != nil {
-		return nil, err
-	}
+	ax, mm, tn := a.Axis, a.Map, a.Tuner
 	ax.Reference(start)
-	mm, err := memmap.New(memmap.Options{Prior: fixedPrior{f0: f, pos: float64(best) + offset, sigma: sigma, slope: slope, q: q}})
-	if err != nil {
-		return nil, err
-	}
-	tn, err := tune.New(tune.Deps{Axis: ax, Sensor: rp, Clock: clk, Map: mm, Transmitter: carrier{rp}, Observer: obs},
-		desc.TunerOptions(tune.Options{Transmit: true}, nominal))
-	if err != nil {
-		return nil, err
-	}
 	return &ReplayRig{Replay: rp, Clock: clk, Axis: ax, Map: mm, Tuner: tn, Freq: freq, Best: best, Width: width}, nil
 }
 

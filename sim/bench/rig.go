@@ -9,6 +9,7 @@ import (
 
 	"periph.io/x/conn/v3/physic"
 
+	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
@@ -101,41 +102,30 @@ func NewRig(o RigOptions) (*Rig, error) {
 			return nil, fmt.Errorf("rig: %w", err)
 		}
 	}
-	axOpts := desc.AxisOptions(o.NominalBacklash)
-	w := &watch{Drive: st.Mech, mech: st.Mech, lo: axOpts.Min, hi: axOpts.Max,
+	if desc.Drive.Home != nil && o.Truth.Drive.Home == nil {
+		desc.Drive.Home = nil // described, but not built: the controller is told there is none
+	}
+	hasHome := desc.Drive.Home != nil
+	lo, hi := desc.SoftLimits()
+	w := &watch{Drive: st.Mech, mech: st.Mech, lo: lo, hi: hi,
 		toSteps: desc.ShaftLag(),
 		play:    math.Max(o.Truth.Drive.BacklashSteps, desc.Drive.BacklashSteps) + o.Truth.Simulator.Drive.SettleSteps + 1,
 	}
-	var drive motion.Drive = w
+	res := controller.Resources{Clock: clk, Drive: w, Switches: st.Mech.Switches(), Sensor: st.Sensor(),
+		Transmitter: st.Radio, Thermometer: st.Thermometer(), Frequency: st.Radio}
 	if o.WrapDrive != nil {
-		drive = o.WrapDrive(w)
+		res.Drive = o.WrapDrive(w)
 	}
-	ax, err := motion.NewAxis(drive, clk, st.Mech.Switches(), axOpts)
-	if err != nil {
-		return nil, err
+	if o.WrapTransmitter != nil {
+		res.Transmitter = o.WrapTransmitter(res.Transmitter)
+		if f, ok := res.Transmitter.(tune.FrequencySource); ok {
+			res.Frequency = f
+		}
 	}
-	if err := ax.Enable(context.Background()); err != nil {
-		return nil, err
+	if o.WrapSensor != nil {
+		res.Sensor = o.WrapSensor(res.Sensor)
 	}
-	hasHome := desc.Drive.Home != nil && o.Truth.Drive.Home != nil
-	if !hasHome {
-		ax.Reference(st.Mech.MotorPosition())
-		w.sync(ax.Position())
-	}
-	mo, err := desc.MapOptions()
-	if err != nil {
-		return nil, err
-	}
-	if o.NoPrior {
-		mo.Prior = nil
-	}
-	mm, err := memmap.New(mo)
-	if err != nil {
-		return nil, err
-	}
-	to := desc.TunerOptions(o.Tune, o.NominalBacklash)
-	to.Transmit = !o.NoTransmit
-	to.HasHome = hasHome
+	var ax *motion.Axis
 	// The watch follows homing so that it neither counts homing legs nor loses the frame.
 	obs := tune.ObserverFunc(func(e tune.Event) {
 		if e.Kind == tune.KindState {
@@ -156,22 +146,23 @@ func NewRig(o RigOptions) (*Rig, error) {
 			o.Observer.Observe(e)
 		}
 	})
-	sensor := st.Sensor()
-	var transmitter tune.Transmitter = st.Radio
-	if o.WrapTransmitter != nil {
-		transmitter = o.WrapTransmitter(transmitter)
-	}
-	if o.WrapSensor != nil {
-		sensor = o.WrapSensor(sensor)
-	}
-	tn, err := tune.New(tune.Deps{
-		Axis: ax, Sensor: sensor, Clock: clk, Map: mm, Transmitter: transmitter,
-		Thermometer: st.Thermometer(), Observer: obs,
-	}, to)
+	to := o.Tune
+	to.Transmit = !o.NoTransmit
+	a, err := controller.Assemble(context.Background(), desc, res, controller.AssembleOptions{
+		Tune: to, Nominal: o.NominalBacklash, Observer: obs, AdjustMap: func(m *memmap.Options) {
+			if o.NoPrior {
+				m.Prior = nil
+			}
+		}})
 	if err != nil {
 		return nil, err
 	}
-	return &Rig{Station: st, Time: clk, Clock: vclk, Axis: ax, Map: mm, Tuner: tn, Described: desc, watch: w}, nil
+	ax = a.Axis
+	if !hasHome {
+		ax.Reference(st.Mech.MotorPosition())
+		w.sync(ax.Position())
+	}
+	return &Rig{Station: st, Time: clk, Clock: vclk, Axis: ax, Map: a.Map, Tuner: a.Tuner, Described: desc, watch: w}, nil
 }
 
 // Tune sets the radio to f and runs the controller's tune there.
