@@ -504,7 +504,8 @@ func outcomeOf(err error) Outcome {
 		return OffFrequency
 	case errors.Is(err, ErrNeedsHoming), errors.Is(err, motion.ErrUntrusted):
 		return NeedsHoming
-	case errors.Is(err, ErrNeedsReference), errors.Is(err, ErrNoPrediction), errors.Is(err, ErrHandReference):
+	case errors.Is(err, ErrNeedsReference), errors.Is(err, ErrNoPrediction), errors.Is(err, ErrHandReference),
+		errors.Is(err, motion.ErrNoHomeSwitch):
 		return NeedsReference
 	}
 	return Fault

@@ -78,6 +78,12 @@ func (in *injector) run(kind string, f physic.Frequency) tune.Result {
 		res = in.r.Tuner.Calibrate(ctx, f)
 	case "home":
 		res = in.r.Tuner.Home(ctx)
+	case "goto":
+		// the operator's move to a step: somewhere in the travel the frequency maps to, or
+		// beyond it (refused), from the frequency's low digits
+		lo, hi := in.r.Axis.SoftLimits()
+		step := lo - 100 + (int64(f/physic.Hertz)%1000)*(hi-lo+200)/1000
+		res = in.r.Tuner.Goto(ctx, step)
 	default:
 		panic("unknown operation " + kind)
 	}
@@ -549,7 +555,7 @@ func TestSafetyProperties(t *testing.T) {
 		_, in := safetyRig(rt, spec, tune.Options{})
 		steps := rapid.IntRange(1, 6).Draw(rt, "steps")
 		for range steps {
-			kind := rapid.SampledFrom([]string{"tune", "tune", "follow", "calibrate", "home", "reset", "reference"}).Draw(rt, "op")
+			kind := rapid.SampledFrom([]string{"tune", "tune", "follow", "calibrate", "home", "goto", "reset", "reference"}).Draw(rt, "op")
 			f := rapid.SampledFrom(freqs).Draw(rt, "freq")
 			fault := rapid.SampledFrom(faults).Draw(rt, "fault")
 			at := rapid.IntRange(1, 400).Draw(rt, "at")
@@ -689,6 +695,20 @@ func TestSecondCalibrationMeasuresAgain(t *testing.T) {
 		if res.Outcome != tune.Calibrated || res.Backlash < 16 || res.Backlash > 24 {
 			t.Fatalf("calibration %d: %s, backlash %d (true 20): %v %q", i+1, res.Outcome, res.Backlash, res.Err, res.Notes)
 		}
+	}
+	in.check(t)
+}
+
+// Homing an axis with no home switch is refused, not a fault: nothing moved, and nothing needs a
+// reset (the operator must say where the motor is).
+func TestHomeWithoutSwitchIsRefused(t *testing.T) {
+	r, in := safetyRig(t, sim.DefaultSpec(), tune.Options{})
+	res := in.run("home", 0)
+	if res.Outcome != tune.NeedsReference || !errors.Is(res.Err, motion.ErrNoHomeSwitch) {
+		t.Errorf("home without a switch: %s (%v)", res.Outcome, res.Err)
+	}
+	if r.Tuner.State() != tune.Idle || r.Tuner.Fault() != nil || in.starts != 0 {
+		t.Errorf("state %s, fault %v, %d moves", r.Tuner.State(), r.Tuner.Fault(), in.starts)
 	}
 	in.check(t)
 }
