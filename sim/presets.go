@@ -7,7 +7,7 @@ import (
 	"github.com/tankd/tankd/controller/station"
 )
 
-// Presets are the example stations of configs/station-<name>.toml, built in so that the
+// Presets are the example stations of configs/stations/<name>.toml, built in so that the
 // benchmark and the tools run without files: the station presets (station.Presets), each with
 // the simulator's knobs for it. A test keeps each in step with its file.
 func Presets() map[string]Spec {

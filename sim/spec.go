@@ -75,7 +75,7 @@ type RadioSpec struct {
 // out at one and a half times the planned speed, log detectors behind a coupler of 30 dB
 // directivity read by a 16-bit converter used single-ended, a temperate day's weather, and a
 // 100 W radio on 80 m. Typical amateur builds (common practice); the figures that are guesses
-// are marked in configs/station-default.toml.
+// are marked in configs/stations/default.toml.
 func DefaultSpec() Spec {
 	return Spec{
 		Description: station.DefaultDescription(),

@@ -12,7 +12,7 @@ import (
 // FuzzParseSpec: whatever the text, the parser returns a valid spec or an error, never a spec
 // that fails its own validation or that NewStation cannot build, and never panics.
 func FuzzParseSpec(f *testing.F) {
-	files, _ := filepath.Glob("../configs/station-*.toml")
+	files, _ := filepath.Glob("../configs/stations/*.toml")
 	for _, p := range files {
 		if b, err := os.ReadFile(p); err == nil {
 			f.Add(b)

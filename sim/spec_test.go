@@ -46,19 +46,19 @@ func TestParseSpecOverridesAndRejects(t *testing.T) {
 }
 
 func TestExampleConfigsParse(t *testing.T) {
-	files, _ := os.ReadDir("../configs")
+	files, _ := os.ReadDir("../configs/stations")
 	n := 0
 	for _, f := range files {
-		if !strings.HasPrefix(f.Name(), "station-") || !strings.HasSuffix(f.Name(), ".toml") {
+		if !strings.HasSuffix(f.Name(), ".toml") {
 			continue
 		}
 		n++
-		if _, err := LoadSpec("../configs/" + f.Name()); err != nil {
+		if _, err := LoadSpec("../configs/stations/" + f.Name()); err != nil {
 			t.Errorf("%s: %v", f.Name(), err)
 		}
 	}
 	if n == 0 {
-		t.Fatal("no example station descriptions in configs/")
+		t.Fatal("no example station descriptions in configs/stations/")
 	}
 }
 
@@ -129,12 +129,12 @@ func BenchmarkSWREvaluation(b *testing.B) {
 
 func TestConfigFilesArePresets(t *testing.T) {
 	for name, want := range Presets() {
-		s, err := LoadSpec("../configs/station-" + name + ".toml")
+		s, err := LoadSpec("../configs/stations/" + name + ".toml")
 		if err != nil {
 			t.Fatal(err)
 		}
 		if got, want := fmtSpec(s), fmtSpec(want); got != want {
-			t.Errorf("configs/station-%s.toml drifted from the built-in preset:\n file %s\n code %s", name, got, want)
+			t.Errorf("configs/stations/%s.toml drifted from the built-in preset:\n file %s\n code %s", name, got, want)
 		}
 	}
 	if _, err := Preset("nonesuch"); err == nil {

@@ -32,6 +32,10 @@ type daemon struct {
 // ctx ends; then it stops everything, records a clean stop if the motor is known to stand, and
 // releases the hardware.
 func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (err error) {
+	if cfg.Hardware.Backend != config.BackendSim {
+		// before anything is opened or taken: the marker must survive for a build that can
+		return fmt.Errorf("hardware backend %q: this build has no drivers for it yet; use %q", cfg.Hardware.Backend, config.BackendSim)
+	}
 	dir, err := statedir.Open(cfg.StateDir(), statedir.Options{})
 	if err != nil {
 		return err // names the process holding the directory
@@ -56,8 +60,6 @@ func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (er
 			return err
 		}
 		res = backend.resources()
-	default:
-		return fmt.Errorf("hardware backend %q: this build has no drivers for it yet; use %q", cfg.Hardware.Backend, config.BackendSim)
 	}
 	defer func() {
 		// Whatever happened, the hardware is left safe: carrier dropped, motor released.

@@ -80,7 +80,7 @@ func TestBenchJSON(t *testing.T) {
 }
 
 func TestBenchOwnStation(t *testing.T) {
-	out, _ := runOK(t, "bench", "-n", "3", "-scenarios", "../../configs/station-vacuum.toml", "-q", "-perturb=false")
+	out, _ := runOK(t, "bench", "-n", "3", "-scenarios", "../../configs/stations/vacuum.toml", "-q", "-perturb=false")
 	if !strings.Contains(out, "3 scenarios") || !strings.Contains(out, "tankd") {
 		t.Errorf("bench of a station file:\n%s", out)
 	}

@@ -133,7 +133,7 @@ const (
 // 10 cm apart, a 10–500 pF air variable over 180°, a 200-step motor at 16 microsteps through a
 // 50:1 worm (160,000 microsteps per capacitor turn), log detectors behind a 30 dB coupler.
 // Typical amateur builds (common practice); the figures that are guesses are marked in
-// configs/station-default.toml.
+// configs/stations/default.toml.
 func DefaultDescription() Description {
 	return Description{
 		Name: "demo: two-turn 2.3 m loop, 10–500 pF air variable",

@@ -10,7 +10,7 @@ import (
 // FuzzParse: whatever the text, the parser returns a valid description or an error, never one
 // that fails its own validation or gives no prior, and never panics.
 func FuzzParse(f *testing.F) {
-	files, _ := filepath.Glob("../../configs/station-*.toml")
+	files, _ := filepath.Glob("../../configs/stations/*.toml")
 	for _, p := range files {
 		if b, err := os.ReadFile(p); err == nil {
 			f.Add(b) // rejected for their [simulator] sections, but a useful start

@@ -9,7 +9,7 @@ import (
 	"github.com/tankd/tankd/controller/sense"
 )
 
-// Presets are the example stations of configs/station-<name>.toml, as descriptions: the demo
+// Presets are the example stations of configs/stations/<name>.toml, as descriptions: the demo
 // station, a vacuum variable between hard stops with a home switch, and a butterfly capacitor
 // with diode detectors and no switch.
 func Presets() map[string]Description {
