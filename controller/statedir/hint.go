@@ -47,3 +47,10 @@ func (d *Dir) Hint() (m Marker, ok bool, err error) {
 	}
 	return m, true, nil
 }
+
+// SweepsDir is the directory, inside the state directory, where the recordings of the tunes'
+// readings are kept (controller/sweeps).
+const SweepsDir = "sweeps"
+
+// SweepsPath is the sweep recordings' directory.
+func (d *Dir) SweepsPath() string { return filepath.Join(d.path, SweepsDir) }
