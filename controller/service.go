@@ -121,6 +121,9 @@ type Service struct {
 
 	snap atomic.Pointer[Snapshot]
 
+	// edits are map edits waiting for Run to apply them between operations (memory.go).
+	edits editQueue
+
 	evmu    sync.Mutex
 	seq     uint64
 	backlog []Event // a ring once full; head is the oldest
@@ -207,6 +210,7 @@ func (s *Service) Run(ctx context.Context) (err error) {
 	defer close(s.done)
 	defer func() { err = s.shutdown() }()
 	for {
+		s.applyEdits() // between operations: see memory.go
 		e, opCtx, cancel := s.next(ctx)
 		if e == nil {
 			if s.idle(ctx) != nil {
