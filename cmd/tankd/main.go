@@ -34,6 +34,8 @@ type options struct {
 	config      string
 	printConfig bool
 	state       string // overrides the configuration's state directory
+	listen      string // overrides the configuration's HTTP listen address
+	version     bool
 	level       slog.Level
 	format      string // text or json
 	virtual     bool   // the simulator on the virtual clock (tests)
@@ -48,6 +50,8 @@ func parse(args []string, stderr io.Writer) (options, error) {
 	fs.StringVar(&o.config, "config", "", "configuration file (TOML); default: the built-in simulator (see configs/)")
 	fs.BoolVar(&o.printConfig, "print-config", false, "print the effective configuration, every default written out, and exit")
 	fs.StringVar(&o.state, "state", "", "state directory, instead of the configuration's [state] dir")
+	fs.StringVar(&o.listen, "listen", "", "the HTTP API's address (host:port), instead of the configuration's [http] listen")
+	fs.BoolVar(&o.version, "version", false, "print the version and exit")
 	level := fs.String("log-level", "info", "debug, info, warn or error")
 	fs.StringVar(&o.format, "log-format", "text", "text or json")
 	simClock := fs.String("sim-clock", "real", "the simulator's clock: real, or virtual (operations take no time; for tests)")
@@ -92,9 +96,18 @@ func run(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "tankd:", err)
 		return 2
 	}
+	if o.version {
+		fmt.Fprintln(stdout, "tankd", versionString())
+		return 0
+	}
 	cfg, err := loadConfig(o.config)
-	if o.state != "" {
-		cfg.State.Dir = o.state
+	if o.state != "" || o.listen != "" {
+		if o.state != "" {
+			cfg.State.Dir = o.state
+		}
+		if o.listen != "" {
+			cfg.HTTP.Listen = o.listen
+		}
 		if err == nil {
 			err = cfg.validate()
 		}

@@ -37,6 +37,7 @@ func start(t *testing.T, state string, edit func(*fileConfig)) *testDaemon {
 	t.Helper()
 	cfg := defaultFile(true)
 	cfg.State.Dir = state
+	cfg.HTTP.Listen = "127.0.0.1:0" // a free port
 	if edit != nil {
 		edit(&cfg)
 	}
@@ -189,6 +190,7 @@ func TestSecondDaemonRefused(t *testing.T) {
 	td.request(controller.Calibrate, demoFreq)
 	cfg := defaultFile(true)
 	cfg.State.Dir = state
+	cfg.HTTP.Listen = "127.0.0.1:0"
 	err := serve(context.Background(), cfg, options{virtual: true}, slog.New(slog.DiscardHandler))
 	if err == nil || !strings.Contains(err.Error(), fmt.Sprintf("in use by process %d", os.Getpid())) {
 		t.Errorf("second daemon: %v", err)
@@ -285,7 +287,7 @@ const childEnv = "TANKD_TEST_DAEMON_STATE"
 // with the killed process.
 func TestKillNineDistrusts(t *testing.T) {
 	if dir := os.Getenv(childEnv); dir != "" {
-		os.Exit(run([]string{"-state", dir}, os.Stdout, os.Stdout))
+		os.Exit(run([]string{"-state", dir, "-listen", "127.0.0.1:0"}, os.Stdout, os.Stdout))
 	}
 	state := t.TempDir()
 	// a first, clean run: the map and the calibration, and a clean-stop marker

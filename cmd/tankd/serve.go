@@ -2,20 +2,27 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"io"
 	"log/slog"
+	"net/http"
 	"os"
 	"os/signal"
 	"strconv"
 	"sync"
 	"syscall"
+	"time"
 
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
+	"github.com/tankd/tankd/controller/api"
 	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/config"
+	"github.com/tankd/tankd/controller/metrics"
 	"github.com/tankd/tankd/controller/statedir"
+	"github.com/tankd/tankd/controller/sweeps"
 	"github.com/tankd/tankd/controller/tune"
 	"github.com/tankd/tankd/sim/vclock"
 )
@@ -26,16 +33,34 @@ type daemon struct {
 	follower *controller.Follower
 	backend  *simBackend // nil on real hardware
 	dir      *statedir.Dir
+	addr     string // the HTTP API's address
 }
 
-// serve opens the state directory and the backend, assembles the controller and runs it until
-// ctx ends; then it stops everything, records a clean stop if the motor is known to stand, and
-// releases the hardware.
+// quietLimit is how long an operation may go without a word (no move, no reading, no change
+// of state: the service republishes its snapshot at every one) before the run loop counts as
+// unhealthy and the systemd watchdog is no longer fed. The longest silent wait in an operation
+// is a settle or a carrier wait, seconds at most.
+const quietLimit = 20 * time.Second
+
+// serve opens the API's listener, the state directory and the backend, assembles the
+// controller, and runs it with the API, the metrics and the sweep recorder until ctx ends; then
+// it stops everything, records a clean stop if the motor is known to stand, and releases the
+// hardware.
 func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (err error) {
 	if cfg.Hardware.Backend != config.BackendSim {
 		// before anything is opened or taken: the marker must survive for a build that can
 		return fmt.Errorf("hardware backend %q: this build has no drivers for it yet; use %q", cfg.Hardware.Backend, config.BackendSim)
 	}
+	token, err := readToken(cfg.HTTP.TokenFile)
+	if err != nil {
+		return err
+	}
+	// The listener first: a port in use stops the daemon before any hardware moves.
+	ln, err := listen(cfg.HTTP.Listen)
+	if err != nil {
+		return err
+	}
+	defer ln.Close() // until the server owns it
 	dir, err := statedir.Open(cfg.StateDir(), statedir.Options{})
 	if err != nil {
 		return err // names the process holding the directory
@@ -52,23 +77,17 @@ func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (er
 	if o.virtual {
 		clk = vclock.New(vclock.Epoch)
 	}
-	var res controller.Resources
-	var backend *simBackend
-	switch cfg.Hardware.Backend {
-	case config.BackendSim:
-		if backend, err = openSim(cfg, clk, dir, log); err != nil {
-			return err
-		}
-		res = backend.resources()
+	backend, err := openSim(cfg, clk, dir, log)
+	if err != nil {
+		return err
 	}
+	res := backend.resources()
 	defer func() {
 		// Whatever happened, the hardware is left safe: carrier dropped, motor released.
 		if herr := res.Close(); herr != nil {
 			log.Error("halting the hardware", "err", herr)
 		}
-		if backend != nil {
-			backend.save()
-		}
+		backend.save()
 	}()
 	a, err := controller.Assemble(ctx, cfg.Station, res, controller.AssembleOptions{
 		Tune:     tunePolicy(cfg.Tuning, log),
@@ -91,53 +110,87 @@ func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (er
 	default:
 		a.Axis.Distrust("no clean stop recorded")
 	}
-	stale := cfg.Tuning.StaleAfter.Duration
-	if backend != nil {
-		// The simulated radio speaks only when something changes: its silence says nothing of
-		// a dead link.
-		stale = -1
-	}
+	// The simulated radio speaks only when something changes: its silence says nothing of a
+	// dead link, so it is never marked stale.
 	fl, err := controller.NewFollower(svc, controller.FollowOptions{
-		RetuneFraction: cfg.Tuning.RetuneFraction, Settle: cfg.Tuning.Settle.Duration, StaleAfter: stale, Logger: log})
+		RetuneFraction: cfg.Tuning.RetuneFraction, Settle: cfg.Tuning.Settle.Duration, StaleAfter: -1, Logger: log})
 	if err != nil {
 		return err
 	}
 
+	// Everything that listens subscribes before the service runs, so that nothing is missed.
+	v := versionString()
+	met, err := metrics.New(svc, metrics.Options{Version: v, Logger: log})
+	if err != nil {
+		return err
+	}
+	recs, err := sweeps.Open(dir.SweepsPath(), sweeps.Options{Logger: log})
+	if err != nil {
+		return err
+	}
+	recSub := svc.Subscribe(sweeps.SubscriptionDepth)
 	events := svc.Subscribe(1024)
+	healthy := func() error { return runHealth(svc, clk) }
+	h, err := api.New(api.Options{Service: svc, Follower: fl, Sweeps: sweepStore{recs}, Token: token,
+		SetFrequency: backend.station.Radio.SetFrequency, Ready: healthy, Version: v, Logger: log, Clock: clk})
+	if err != nil {
+		return err
+	}
+	mux := http.NewServeMux()
+	mux.Handle("GET /metrics", met.Handler())
+	mux.Handle("/", h)
+
 	var wg sync.WaitGroup
 	defer wg.Wait()
-	wg.Add(2)
+	runCtx, stopRun := context.WithCancel(context.Background())
+	defer stopRun()
+	wg.Add(3)
 	go func() {
 		defer wg.Done()
 		logEvents(log, events) // until the subscription is closed
 	}()
-	runDone := make(chan error, 1)
 	go func() {
 		defer wg.Done()
-		runDone <- svc.Run(ctx)
-	}()
-	// The radio's reports go to the follower; the simulator serves its radio's CAT link.
-	var reports <-chan physic.Frequency
-	if backend != nil {
-		r, err := backend.serveRadio(ctx, cfg.Radio, &wg)
-		if err != nil {
-			return err
+		// ends when its subscription is closed, after the service has stopped, so that the
+		// last operation's recording is written
+		if err := recs.Run(runCtx, recSub); err != nil && !errors.Is(err, context.Canceled) {
+			log.Error("sweep recorder", "err", err)
 		}
-		reports = r
+	}()
+	go func() {
+		defer wg.Done()
+		if err := met.Run(ctx); err != nil && !errors.Is(err, context.Canceled) {
+			log.Error("metrics", "err", err)
+		}
+	}()
+	runDone := make(chan error, 1)
+	go func() { runDone <- svc.Run(ctx) }()
+	// The radio's reports go to the follower; the simulator serves its radio's CAT link.
+	reports, err := backend.serveRadio(ctx, cfg.Radio, &wg)
+	if err != nil {
+		return err
 	}
-	d := &daemon{svc: svc, follower: fl, backend: backend, dir: dir}
+	srv := serveHTTP(ln, mux, log)
+	srv.srv.RegisterOnShutdown(h.Close)
+	d := &daemon{svc: svc, follower: fl, backend: backend, dir: dir, addr: ln.Addr().String()}
 	if o.ready != nil {
 		o.ready(d)
 	}
-	if f, ok := d.radioFrequency(); ok {
-		// The loop starts calibrated (once, if it may key) and then follows the radio.
-		if !svc.Tuner().Calibrated() && cfg.Tuning.Transmit && cfg.Tuning.AutoTune {
-			if _, err := svc.Submit(controller.Request{Kind: controller.Calibrate, Source: controller.SourceSchedule, Freq: f}); err != nil {
-				return err
-			}
+	f := backend.station.Radio.Frequency()
+	// The loop starts calibrated (once, if it may key) and then follows the radio.
+	if !svc.Tuner().Calibrated() && cfg.Tuning.Transmit && cfg.Tuning.AutoTune {
+		if _, err := svc.Submit(controller.Request{Kind: controller.Calibrate, Source: controller.SourceSchedule, Freq: f}); err != nil {
+			return err
 		}
-		fl.Update(f, controller.SourceRadio)
 	}
+	fl.Update(f, controller.SourceRadio)
+	sd := newNotifier(log)
+	sd.ready()
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		sd.watch(ctx, healthy)
+	}()
 	// SIGHUP clears a latched fault, as an operator's reset (the position stays untrusted).
 	hup := make(chan os.Signal, 1)
 	signal.Notify(hup, syscall.SIGHUP)
@@ -145,8 +198,11 @@ func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (er
 	for {
 		select {
 		case <-ctx.Done():
+			sd.stopping()
+			srv.shutdown()
 			runErr := <-runDone
 			events.Close()
+			recSub.Close()
 			if m, ok := svc.CleanStop(); ok && runErr == nil {
 				if werr := dir.WriteMarker(m); werr != nil {
 					log.Error("clean-stop marker not written", "err", werr)
@@ -170,12 +226,21 @@ func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (er
 	}
 }
 
-// radioFrequency is the radio's frequency, where the backend knows it.
-func (d *daemon) radioFrequency() (physic.Frequency, bool) {
-	if d.backend == nil {
-		return 0, false
+// runHealth says whether the service's run loop is healthy: running, and not silent in the
+// middle of an operation for longer than quietLimit.
+func runHealth(svc *controller.Service, clk clock.Clock) error {
+	select {
+	case <-svc.Done():
+		return errors.New("the run loop has stopped")
+	default:
 	}
-	return d.backend.station.Radio.Frequency(), true
+	sn := svc.Snapshot()
+	if sn.Busy {
+		if quiet := clk.Now().Sub(sn.At); quiet > quietLimit {
+			return fmt.Errorf("the running operation has said nothing for %v", quiet.Round(time.Second))
+		}
+	}
+	return nil
 }
 
 // tunePolicy is the tuner's part of the configured tuning policy.
@@ -188,4 +253,33 @@ func tunePolicy(t config.Tuning, log *slog.Logger) tune.Options {
 		CarrierLimit: t.CarrierLimit.Duration,
 		Logger:       log,
 	}
+}
+
+// sweepStore serves the sweep recorder's recordings to the API.
+type sweepStore struct{ s *sweeps.Store }
+
+// List implements api.SweepStore.
+func (ss sweepStore) List() ([]api.Sweep, error) {
+	var out []api.Sweep
+	for _, in := range ss.s.List() {
+		out = append(out, apiSweep(in))
+	}
+	return out, nil
+}
+
+// Open implements api.SweepStore.
+func (ss sweepStore) Open(id string) (api.Sweep, io.ReadCloser, error) {
+	in, rc, err := ss.s.Open(id)
+	if errors.Is(err, sweeps.ErrInvalidID) {
+		err = fmt.Errorf("%w: %w", api.ErrSweepNotFound, err)
+	}
+	if err != nil {
+		return api.Sweep{}, nil, err
+	}
+	return apiSweep(in), rc, nil
+}
+
+func apiSweep(in sweeps.Info) api.Sweep {
+	return api.Sweep{ID: in.ID, Time: in.Time, Kind: in.Kind, Freq: in.Freq, Outcome: in.Outcome,
+		Request: in.Request, Samples: in.Samples, Bytes: in.Size}
 }
