@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"net"
 	"net/http"
 	"os"
 	"os/exec"
@@ -32,7 +33,29 @@ func TestBinaryEndToEnd(t *testing.T) {
 	}
 	state := t.TempDir()
 
-	p := startBinary(t, bin, state)
+	// systemd's notification socket, as systemd would give it (Type=notify, WatchdogSec)
+	sock := filepath.Join(t.TempDir(), "notify")
+	conn, err := net.ListenUnixgram("unixgram", &net.UnixAddr{Name: sock, Net: "unixgram"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	notes := make(chan string, 64)
+	go func() {
+		buf := make([]byte, 512)
+		for {
+			n, _, err := conn.ReadFromUnix(buf)
+			if err != nil {
+				return
+			}
+			notes <- string(buf[:n])
+		}
+	}()
+	p := startBinaryEnv(t, bin, []string{"NOTIFY_SOCKET=" + sock, "WATCHDOG_USEC=200000"},
+		"-state", state, "-listen", "127.0.0.1:0", "-sim-clock", "virtual")
+	// READY once it is up, then WATCHDOG pings at half the interval while the loop is healthy
+	awaitNote(t, notes, "READY=1")
+	awaitNote(t, notes, "WATCHDOG=1")
 	// the first start calibrates at the simulated radio's frequency: let it finish
 	var first requestJSON
 	p.getJSON("/api/v1/requests/1?wait=20s", &first)
@@ -84,6 +107,7 @@ func TestBinaryEndToEnd(t *testing.T) {
 	if code := p.stop(syscall.SIGTERM); code != 0 {
 		t.Fatalf("SIGTERM: exit status %d", code)
 	}
+	awaitNote(t, notes, "STOPPING=1")
 
 	p = startBinary(t, bin, state)
 	p.getJSON("/api/v1/status", &st)
@@ -106,6 +130,22 @@ func TestBinaryEndToEnd(t *testing.T) {
 	}
 	if code := p.stop(syscall.SIGTERM); code != 0 {
 		t.Errorf("SIGTERM: exit status %d", code)
+	}
+}
+
+// awaitNote waits for a systemd notification (the timeout is a safety net).
+func awaitNote(t *testing.T, notes <-chan string, want string) {
+	t.Helper()
+	deadline := time.After(30 * time.Second)
+	for {
+		select {
+		case n := <-notes:
+			if strings.Contains(n, want) {
+				return
+			}
+		case <-deadline:
+			t.Fatalf("no %q notification", want)
+		}
 	}
 }
 
@@ -164,7 +204,15 @@ func startBinary(t *testing.T, bin, state string, args ...string) *process {
 // startBinaryArgs runs the daemon with args and waits until it is ready.
 func startBinaryArgs(t *testing.T, bin string, args ...string) *process {
 	t.Helper()
+	return startBinaryEnv(t, bin, nil, args...)
+}
+
+// startBinaryEnv runs the daemon with args and env added to the environment, and waits until
+// it is ready.
+func startBinaryEnv(t *testing.T, bin string, env []string, args ...string) *process {
+	t.Helper()
 	cmd := exec.Command(bin, args...)
+	cmd.Env = append(os.Environ(), env...)
 	stderr, err := cmd.StderrPipe()
 	if err != nil {
 		t.Fatal(err)
