@@ -348,8 +348,9 @@ func (s *Service) finish(e *entry, res tune.Result, stopping bool) {
 	defer s.mu.Unlock()
 	s.running = nil
 	s.last, s.lastID = &res, st.ID
-	s.finalLocked(e, state, 0, &res, st.Finished)
+	// the snapshot first: whoever hears that the request is done finds it done in the snapshot
 	s.publishLocked()
+	s.finalLocked(e, state, 0, &res, st.Finished)
 }
 
 // serve runs one request, turning a panic anywhere in it into a latched fault.
