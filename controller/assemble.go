@@ -32,6 +32,11 @@ type AssembleOptions struct {
 	// Observer watches the tuner synchronously; only without a Service (a service's listeners
 	// Subscribe).
 	Observer tune.Observer
+	// Place, if set, says where the motor is, once the axis and the state are ready and before
+	// the tuner and the service are built (so that their first snapshot says it): Reference the
+	// axis (after a clean stop), or leave it untrusted with the reason (Distrust). st is nil
+	// without a state directory.
+	Place func(ax *motion.Axis, st *State)
 	// AdjustAxis and AdjustMap, if set, change the axis's and the memory map's options after
 	// they are derived from the description: for a rig whose motor positions are not a real
 	// station's (a recording's span as the soft limits) or whose map is to know less (no
@@ -104,6 +109,9 @@ func Assemble(ctx context.Context, desc station.Description, res Resources, o As
 		a.Map = a.State.Map()
 	} else if a.Map, err = memmap.New(mo); err != nil {
 		return nil, fmt.Errorf("assemble: %w", err)
+	}
+	if o.Place != nil {
+		o.Place(ax, a.State)
 	}
 	to := desc.TunerOptions(o.Tune, nominal)
 	if to.Logger == nil {

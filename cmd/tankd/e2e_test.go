@@ -12,6 +12,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"regexp"
+	"runtime"
 	"strings"
 	"sync"
 	"syscall"
@@ -81,10 +82,16 @@ func TestBinaryEndToEnd(t *testing.T) {
 		st.SWR == nil || *st.SWR > 1.5 || st.MapPoints != 2 || !st.PositionTrusted {
 		t.Errorf("status after the tune: %+v", st)
 	}
+	// The counters are counted from the event stream, a moment after the request is done: scrape
+	// until they have caught up (the follower may have tuned at the radio's first frequency as
+	// well: at least one tuned follow).
+	tunedFollow := regexp.MustCompile(`(?m)^tankd_operations_total\{kind="follow",outcome="tuned"\} [1-9]`)
 	metrics := p.get("/metrics")
-	// (the follower may have tuned at the radio's first frequency as well: at least one)
-	if !regexp.MustCompile(`(?m)^tankd_operations_total\{kind="follow",outcome="tuned"\} [1-9]`).MatchString(metrics) {
-		t.Error("metrics count no tuned follow")
+	for deadline := time.Now().Add(10 * time.Second); !tunedFollow.MatchString(metrics); metrics = p.get("/metrics") {
+		if time.Now().After(deadline) {
+			t.Fatalf("metrics count no tuned follow:\n%s", metrics)
+		}
+		runtime.Gosched()
 	}
 	for _, want := range []string{
 		`tankd_operations_total{kind="calibrate",outcome="calibrated"} 1`,
@@ -108,11 +115,12 @@ func TestBinaryEndToEnd(t *testing.T) {
 		t.Fatalf("SIGTERM: exit status %d", code)
 	}
 	awaitNote(t, notes, "STOPPING=1")
+	firstLog := p.logText()
 
 	p = startBinary(t, bin, state)
 	p.getJSON("/api/v1/status", &st)
 	if st.MapPoints != 2 || !st.PositionTrusted {
-		t.Errorf("after a clean stop: %d map points, position trusted %v", st.MapPoints, st.PositionTrusted)
+		t.Errorf("after a clean stop: %d map points, position trusted %v\n--- the first run:\n%s\n--- the second:\n%s", st.MapPoints, st.PositionTrusted, firstLog, p.logText())
 	}
 	if code := p.stop(syscall.SIGKILL); code != -1 {
 		t.Errorf("SIGKILL: exit status %d", code)

@@ -21,6 +21,7 @@ import (
 	"github.com/tankd/tankd/controller/clock"
 	"github.com/tankd/tankd/controller/config"
 	"github.com/tankd/tankd/controller/metrics"
+	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/statedir"
 	"github.com/tankd/tankd/controller/sweeps"
 	"github.com/tankd/tankd/controller/tune"
@@ -94,22 +95,24 @@ func serve(ctx context.Context, cfg fileConfig, o options, log *slog.Logger) (er
 		StateDir: dir,
 		Service:  &controller.Options{AutoTune: cfg.Tuning.AutoTune, AfterOperation: backend.afterOperationHook(), Logger: log},
 		Logger:   log,
+		Place: func(ax *motion.Axis, st *controller.State) {
+			switch hint, hinted := st.Hint(); {
+			case clean && marker.Trusted:
+				ax.Reference(marker.Position)
+			case hinted:
+				// Where the motor was after the last operation: a first guess for finding it
+				// again from a dip, never trusted.
+				ax.Reference(hint.Position)
+				ax.Distrust("no clean stop recorded; last known near " + strconv.FormatInt(hint.Position, 10))
+			default:
+				ax.Distrust("no clean stop recorded")
+			}
+		},
 	})
 	if err != nil {
 		return err
 	}
 	svc := a.Service
-	switch hint, hinted := a.State.Hint(); {
-	case clean && marker.Trusted:
-		a.Axis.Reference(marker.Position)
-	case hinted:
-		// Where the motor was after the last operation: a first guess for finding it again
-		// from a dip, never trusted.
-		a.Axis.Reference(hint.Position)
-		a.Axis.Distrust("no clean stop recorded; last known near " + strconv.FormatInt(hint.Position, 10))
-	default:
-		a.Axis.Distrust("no clean stop recorded")
-	}
 	// The simulated radio speaks only when something changes: its silence says nothing of a
 	// dead link, so it is never marked stale.
 	fl, err := controller.NewFollower(svc, controller.FollowOptions{
