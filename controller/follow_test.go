@@ -7,6 +7,7 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/tune"
 )
 
@@ -22,11 +23,11 @@ const (
 func follower(t *testing.T, autoTune bool) (*rig, *controller.Follower) {
 	t.Helper()
 	r := newRig(t, rigOptions{svc: controller.Options{AutoTune: autoTune}})
-	fl, err := controller.NewFollower(r.s, controller.FollowOptions{Manual: true})
+	fl, err := controller.NewFollower(r.Service, controller.FollowOptions{Manual: true})
 	if err != nil {
 		t.Fatal(err)
 	}
-	r.start(t)
+	r.Start(t)
 	return r, fl
 }
 
@@ -38,7 +39,7 @@ func submitted(t *testing.T, r *rig, fl *controller.Follower, prev controller.Re
 	if id == prev {
 		t.Fatalf("the follower submitted nothing (still request %d)", prev)
 	}
-	return r.wait(t, id)
+	return r.Wait(t, id)
 }
 
 // idle checks that the follower submitted nothing since prev.
@@ -52,8 +53,8 @@ func idle(t *testing.T, fl *controller.Follower, prev controller.RequestID, what
 // tuneAt has the loop tuned at f, as an API client would, and waits for it.
 func tuneAt(t *testing.T, r *rig, f physic.Frequency) tune.Result {
 	t.Helper()
-	r.loop.Radio.SetFrequency(f)
-	_, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f, Source: controller.SourceAPI})
+	r.Loop.Radio.SetFrequency(f)
+	_, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f, Source: controller.SourceAPI})
 	if res.Outcome != tune.Tuned {
 		t.Fatalf("tune at %v: %s (%v)", f, res.Outcome, res.Err)
 	}
@@ -69,20 +70,20 @@ func TestFollowerInsideTheWindow(t *testing.T) {
 	bw := res.Fit.Bandwidth // the fake loop's: 3.75 MHz / Q 1000 ≈ 3.75 kHz
 	inside := f80 + physic.Frequency(0.2*bw)*physic.Hertz
 	outside := f80 + physic.Frequency(0.3*bw)*physic.Hertz
-	r.loop.Radio.SetFrequency(inside)
+	r.Loop.Radio.SetFrequency(inside)
 	fl.Update(inside, controller.SourceRadio)
-	r.loop.Clock.Advance(2 * settle)
+	r.Loop.Clock.Advance(2 * settle)
 	fl.Poll()
 	idle(t, fl, 0, "inside the window")
-	if sn := r.s.Snapshot(); sn.Busy || len(sn.Queue) != 0 || sn.Radio.Freq != inside || sn.Radio.Source != controller.SourceRadio {
+	if sn := r.Service.Snapshot(); sn.Busy || len(sn.Queue) != 0 || sn.Radio.Freq != inside || sn.Radio.Source != controller.SourceRadio {
 		t.Fatalf("snapshot inside the window: busy %v, queue %v, radio %+v", sn.Busy, sn.Queue, sn.Radio)
 	}
-	r.loop.Radio.SetFrequency(outside)
+	r.Loop.Radio.SetFrequency(outside)
 	fl.Update(outside, controller.SourceRadio)
-	if due := fl.Status().Due; !due.Equal(r.loop.Clock.Now().Add(settle)) {
+	if due := fl.Status().Due; !due.Equal(r.Loop.Clock.Now().Add(settle)) {
 		t.Fatalf("a Follow due at %v, want the settle time from now", due)
 	}
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	st := submitted(t, r, fl, 0)
 	if st.Request.Kind != controller.Follow || st.Request.Freq != outside || st.Request.Source != controller.SourceRadio || st.Result.Outcome != tune.Tuned {
@@ -102,21 +103,21 @@ func TestFollowerSettlesAfterABurst(t *testing.T) {
 	burst := []physic.Frequency{3700 * physic.KiloHertz, 3710 * physic.KiloHertz, 3720 * physic.KiloHertz}
 	for i, f := range burst {
 		if i > 0 {
-			r.loop.Clock.Advance(200 * time.Millisecond)
+			r.Loop.Clock.Advance(200 * time.Millisecond)
 			fl.Poll()
 		}
 		fl.Update(f, controller.SourceRadio)
 	}
-	r.loop.Clock.Advance(settle - time.Millisecond)
+	r.Loop.Clock.Advance(settle - time.Millisecond)
 	fl.Poll()
 	idle(t, fl, first.ID, "before the last change has settled")
-	r.loop.Clock.Advance(time.Millisecond)
+	r.Loop.Clock.Advance(time.Millisecond)
 	fl.Poll()
 	st := submitted(t, r, fl, first.ID)
 	if st.Request.Kind != controller.Follow || st.Request.Freq != burst[2] || st.Result.Outcome != tune.Positioned {
 		t.Fatalf("after the burst: %+v → %+v", st.Request, st.Result)
 	}
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	idle(t, fl, st.ID, "once followed")
 }
@@ -128,14 +129,14 @@ func TestFollowerBandChangeAtOnce(t *testing.T) {
 	tuneAt(t, r, f80)
 	fl.Update(f80, controller.SourceRadio)
 	idle(t, fl, 0, "on the tuned frequency")
-	r.loop.Radio.SetFrequency(f40)
-	keys := r.loop.Radio.Keys()
+	r.Loop.Radio.SetFrequency(f40)
+	keys := r.Loop.Radio.Keys()
 	fl.Update(f40, controller.SourceRadio)
 	pre := submitted(t, r, fl, 0)
-	if pre.Request.Kind != controller.Preposition || pre.Request.Freq != f40 || pre.Result.Outcome != tune.Positioned || r.loop.Radio.Keys() != keys {
-		t.Fatalf("band change: %+v → %+v, %d keys", pre.Request, pre.Result, r.loop.Radio.Keys()-keys)
+	if pre.Request.Kind != controller.Preposition || pre.Request.Freq != f40 || pre.Result.Outcome != tune.Positioned || r.Loop.Radio.Keys() != keys {
+		t.Fatalf("band change: %+v → %+v, %d keys", pre.Request, pre.Result, r.Loop.Radio.Keys()-keys)
 	}
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	st := submitted(t, r, fl, pre.ID)
 	if st.Request.Kind != controller.Follow || st.Request.Freq != f40 || st.Result.Outcome != tune.Tuned {
@@ -153,7 +154,7 @@ func TestFollowerBandChangeWithoutAutoTune(t *testing.T) {
 	if pre.Request.Kind != controller.Preposition || pre.Request.Freq != f160 {
 		t.Fatalf("band change: %+v", pre.Request)
 	}
-	r.loop.Clock.Advance(2 * settle)
+	r.Loop.Clock.Advance(2 * settle)
 	fl.Poll()
 	idle(t, fl, pre.ID, "after the pre-position, without auto-tune")
 }
@@ -165,22 +166,22 @@ func TestFollowerMarksASilentSourceStale(t *testing.T) {
 	fl.Update(f80, controller.SourceRadio)
 	submitted(t, r, fl, 0)
 	fl.Alive(controller.SourceRadio)
-	heard := r.loop.Clock.Now()
+	heard := r.Loop.Clock.Now()
 	if next := fl.Poll(); !next.Equal(heard.Add(staleAfter)) {
 		t.Fatalf("next poll at %v, want %v after the last word", next, staleAfter)
 	}
-	r.loop.Clock.Advance(staleAfter - time.Millisecond)
+	r.Loop.Clock.Advance(staleAfter - time.Millisecond)
 	fl.Poll()
-	if sn := r.s.Snapshot(); sn.Radio.Stale || fl.Status().Stale {
+	if sn := r.Service.Snapshot(); sn.Radio.Stale || fl.Status().Stale {
 		t.Fatal("stale before the stale time")
 	}
-	r.loop.Clock.Advance(time.Millisecond)
+	r.Loop.Clock.Advance(time.Millisecond)
 	fl.Poll()
-	if sn := r.s.Snapshot(); !sn.Radio.Stale || !fl.Status().Stale || sn.Radio.Freq != f80 || !sn.Radio.Heard.Equal(heard) {
+	if sn := r.Service.Snapshot(); !sn.Radio.Stale || !fl.Status().Stale || sn.Radio.Freq != f80 || !sn.Radio.Heard.Equal(heard) {
 		t.Fatalf("after %v of silence: snapshot radio %+v, follower %+v", staleAfter, sn.Radio, fl.Status())
 	}
 	fl.Alive(controller.SourceRadio)
-	if sn := r.s.Snapshot(); sn.Radio.Stale || fl.Status().Stale {
+	if sn := r.Service.Snapshot(); sn.Radio.Stale || fl.Status().Stale {
 		t.Fatal("still stale after the source spoke")
 	}
 }
@@ -192,7 +193,7 @@ func TestFollowerKnowsTheTunersOwnCarrier(t *testing.T) {
 	r, fl := follower(t, true)
 	fl.Update(f80, controller.SourceRadio)
 	pre := submitted(t, r, fl, 0)
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	follow := submitted(t, r, fl, pre.ID)
 	if follow.Result.Outcome != tune.Tuned {
@@ -201,19 +202,19 @@ func TestFollowerKnowsTheTunersOwnCarrier(t *testing.T) {
 	// The operator has an API client tune elsewhere in the band; the radio reports it only once
 	// the carrier is on.
 	reported := 0
-	r.loop.Sensor.OnRead(func() {
-		if sn := r.s.Snapshot(); sn.State == tune.Refining && r.loop.Radio.Transmitting() {
-			fl.Update(r.loop.Radio.Frequency(), controller.SourceRadio)
+	r.Loop.Sensor.OnRead(func() {
+		if sn := r.Service.Snapshot(); sn.State == tune.Refining && r.Loop.Radio.Transmitting() {
+			fl.Update(r.Loop.Radio.Frequency(), controller.SourceRadio)
 			reported++
 		}
 	})
 	tuneAt(t, r, f80b)
-	r.loop.Sensor.OnRead(nil)
+	r.Loop.Sensor.OnRead(nil)
 	if reported == 0 {
 		t.Fatal("no report during the RF stages")
 	}
 	idle(t, fl, follow.ID, "reports of the tuner's own carrier")
-	r.loop.Clock.Advance(2 * settle)
+	r.Loop.Clock.Advance(2 * settle)
 	fl.Poll()
 	idle(t, fl, follow.ID, "after the tune")
 }
@@ -227,14 +228,14 @@ func TestFollowerFollowsTheOperatorDuringRF(t *testing.T) {
 	fl.Update(f80, controller.SourceRadio)
 	moved := 3720 * physic.KiloHertz
 	fl.Update(3735*physic.KiloHertz, controller.SourceRadio)
-	r.loop.Radio.SetFrequency(3735 * physic.KiloHertz)
-	r.loop.Clock.Advance(settle)
+	r.Loop.Radio.SetFrequency(3735 * physic.KiloHertz)
+	r.Loop.Clock.Advance(settle)
 	var during controller.RequestID
-	r.loop.Sensor.OnRead(until(func() bool {
-		if r.s.Snapshot().State != tune.Refining {
+	r.Loop.Sensor.OnRead(fakeservice.Until(func() bool {
+		if r.Service.Snapshot().State != tune.Refining {
 			return false
 		}
-		r.loop.Radio.SetFrequency(moved)
+		r.Loop.Radio.SetFrequency(moved)
 		fl.Update(moved, controller.SourceRadio)
 		during = fl.Status().Submitted
 		return true
@@ -247,7 +248,7 @@ func TestFollowerFollowsTheOperatorDuringRF(t *testing.T) {
 	if during != first.ID {
 		t.Fatalf("the follower submitted request %d during the RF stages", during)
 	}
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	st := submitted(t, r, fl, first.ID)
 	if st.Request.Freq != moved || st.Result.Outcome != tune.Tuned {
@@ -260,23 +261,23 @@ func TestFollowerFollowsTheOperatorDuringRF(t *testing.T) {
 func TestFollowerDoesNotRepeatAFailure(t *testing.T) {
 	r, fl := follower(t, true)
 	f20 := 14200 * physic.KiloHertz // far above what the fake's capacitor reaches
-	r.loop.Radio.SetFrequency(f20)
+	r.Loop.Radio.SetFrequency(f20)
 	fl.Update(f20, controller.SourceRadio)
 	pre := submitted(t, r, fl, 0)
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	st := submitted(t, r, fl, pre.ID)
 	if pre.Result.Outcome != tune.OutOfRange || st.Result.Outcome != tune.OutOfRange {
 		t.Fatalf("at %v: %s then %s, want out-of-range", f20, pre.Result.Outcome, st.Result.Outcome)
 	}
 	for range 5 {
-		r.loop.Clock.Advance(settle)
+		r.Loop.Clock.Advance(settle)
 		fl.Alive(controller.SourceRadio)
 		fl.Poll()
 	}
 	idle(t, fl, st.ID, "on a frequency that failed")
-	if r.loop.Radio.Keys() != 0 {
-		t.Fatalf("%d keys on a frequency the loop cannot tune", r.loop.Radio.Keys())
+	if r.Loop.Radio.Keys() != 0 {
+		t.Fatalf("%d keys on a frequency the loop cannot tune", r.Loop.Radio.Keys())
 	}
 }
 
@@ -287,13 +288,13 @@ func TestFollowerDoesNotRepeatAFailure(t *testing.T) {
 func TestServiceDrivesTheFollower(t *testing.T) {
 	t.Run("settle", func(t *testing.T) {
 		r := newRig(t, rigOptions{})
-		fl, err := controller.NewFollower(r.s, controller.FollowOptions{StaleAfter: -1})
+		fl, err := controller.NewFollower(r.Service, controller.FollowOptions{StaleAfter: -1})
 		if err != nil {
 			t.Fatal(err)
 		}
-		sub := r.s.Subscribe(1 << 16)
+		sub := r.Service.Subscribe(1 << 16)
 		defer sub.Close()
-		r.start(t)
+		r.Start(t)
 		fl.Update(f80, controller.SourceRadio) // the first report pre-positions at once
 		submitted(t, r, fl, 0)
 		fl.Update(f80b, controller.SourceRadio)
@@ -307,24 +308,24 @@ func TestServiceDrivesTheFollower(t *testing.T) {
 				if d := e.Status.Submitted.Sub(from); d != settle || e.Status.Request.Kind != controller.Follow {
 					t.Fatalf("a %s went out %v after the change, want a follow after the settle time %v", e.Status.Request.Kind, d, settle)
 				}
-				if st := r.wait(t, e.Request); st.Result.Outcome != tune.Positioned {
+				if st := r.Wait(t, e.Request); st.Result.Outcome != tune.Positioned {
 					t.Fatalf("the follow: %+v", st.Result)
 				}
 				return
-			case <-time.After(safety):
+			case <-time.After(fakeservice.Safety):
 				t.Fatal("the service never followed the change")
 			}
 		}
 	})
 	t.Run("stale", func(t *testing.T) {
 		r := newRig(t, rigOptions{})
-		fl, err := controller.NewFollower(r.s, controller.FollowOptions{})
+		fl, err := controller.NewFollower(r.Service, controller.FollowOptions{})
 		if err != nil {
 			t.Fatal(err)
 		}
-		sub := r.s.Subscribe(1 << 16)
+		sub := r.Service.Subscribe(1 << 16)
 		defer sub.Close()
-		r.start(t)
+		r.Start(t)
 		fl.Update(f80, controller.SourceRadio)
 		heard := fl.Status().Heard
 		for {
@@ -337,7 +338,7 @@ func TestServiceDrivesTheFollower(t *testing.T) {
 					t.Fatalf("stale %v after the last word, at %v; want %v", d, e.Snapshot.Radio.Freq, staleAfter)
 				}
 				return
-			case <-time.After(safety):
+			case <-time.After(fakeservice.Safety):
 				t.Fatal("the service never marked the silent source stale")
 			}
 		}
@@ -348,24 +349,24 @@ func TestServiceDrivesTheFollower(t *testing.T) {
 // not tried again until the source reports where the radio went; then that is followed.
 func TestFollowerWaitsForANewReportAfterAMiss(t *testing.T) {
 	r, fl := follower(t, true)
-	r.loop.Radio.SetFrequency(f80)
+	r.Loop.Radio.SetFrequency(f80)
 	fl.Update(f80, controller.SourceRadio)
 	pre := submitted(t, r, fl, 0)
-	r.loop.Radio.SetFrequency(f80b) // the radio moves; the source misses it
-	r.loop.Clock.Advance(settle)
+	r.Loop.Radio.SetFrequency(f80b) // the radio moves; the source misses it
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	miss := submitted(t, r, fl, pre.ID)
-	if miss.Result.Outcome != tune.OffFrequency || r.loop.Radio.Keys() != 0 {
-		t.Fatalf("the follow at the old frequency: %s, %d keys; want off-frequency, nothing keyed", miss.Result.Outcome, r.loop.Radio.Keys())
+	if miss.Result.Outcome != tune.OffFrequency || r.Loop.Radio.Keys() != 0 {
+		t.Fatalf("the follow at the old frequency: %s, %d keys; want off-frequency, nothing keyed", miss.Result.Outcome, r.Loop.Radio.Keys())
 	}
 	for range 3 {
-		r.loop.Clock.Advance(settle)
+		r.Loop.Clock.Advance(settle)
 		fl.Alive(controller.SourceRadio)
 		fl.Poll()
 	}
 	idle(t, fl, miss.ID, "with no report of where the radio went")
 	fl.Update(f80b, controller.SourceRadio)
-	r.loop.Clock.Advance(settle)
+	r.Loop.Clock.Advance(settle)
 	fl.Poll()
 	if st := submitted(t, r, fl, miss.ID); st.Request.Freq != f80b || st.Result.Outcome != tune.Tuned {
 		t.Fatalf("once reported: %+v → %+v", st.Request, st.Result)

@@ -12,6 +12,7 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/statedir"
 	"github.com/tankd/tankd/controller/tune"
@@ -47,30 +48,30 @@ func TestImportMapBetweenOperations(t *testing.T) {
 		atEnd = freqs(st.Map().Points())
 	}}})
 	queued := make(chan struct{}, 1)
-	controller.OnEditQueued(r.s, func() { queued <- struct{}{} })
+	controller.OnEditQueued(r.Service, func() { queued <- struct{}{} })
 	type imported struct {
 		res controller.MapImport
 		err error
 	}
 	done := make(chan imported, 1)
-	r.loop.Sensor.OnRead(until(func() bool {
-		if r.s.Snapshot().State != tune.Refining {
+	r.Loop.Sensor.OnRead(fakeservice.Until(func() bool {
+		if r.Service.Snapshot().State != tune.Refining {
 			return false
 		}
 		go func() {
-			res, err := r.s.ImportMap(context.Background(), importPoints())
+			res, err := r.Service.ImportMap(context.Background(), importPoints())
 			done <- imported{res, err}
 		}()
 		select { // the import is waiting before the tune goes on
 		case <-queued:
-		case <-time.After(safety):
+		case <-time.After(fakeservice.Safety):
 			t.Error("the import was never queued")
 		}
 		return true
 	}))
-	r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	_, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80})
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	_, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80})
 	if res.Outcome != tune.Tuned {
 		t.Fatalf("tune: %s (%v)", res.Outcome, res.Err)
 	}
@@ -80,7 +81,7 @@ func TestImportMapBetweenOperations(t *testing.T) {
 	var got imported
 	select {
 	case got = <-done:
-	case <-time.After(safety):
+	case <-time.After(fakeservice.Safety):
 		t.Fatal("the import never finished")
 	}
 	if got.err != nil {
@@ -101,11 +102,11 @@ func TestImportMapBetweenOperations(t *testing.T) {
 	if err != nil || !slices.Equal(freqs(saved.Points()), want) {
 		t.Fatalf("the map saved: %v, %v", saved, err)
 	}
-	if n := r.s.Snapshot().MapPoints; n != 3 {
+	if n := r.Service.Snapshot().MapPoints; n != 3 {
 		t.Fatalf("snapshot: %d map points, want 3", n)
 	}
 	// A second import in the same second keeps the first's copy too.
-	again, err := r.s.ImportMap(context.Background(), importPoints()[:1])
+	again, err := r.Service.ImportMap(context.Background(), importPoints()[:1])
 	if err != nil || again.Aside == got.res.Aside || again.Aside == "" {
 		t.Fatalf("second import: %+v, %v; want another copy aside than %q", again, err, got.res.Aside)
 	}
@@ -114,8 +115,8 @@ func TestImportMapBetweenOperations(t *testing.T) {
 // Every bad point is named with its field, and nothing changes.
 func TestImportMapRefusesBadPoints(t *testing.T) {
 	r := newRig(t, rigOptions{})
-	r.start(t)
-	lo, hi := r.ax.SoftLimits()
+	r.Start(t)
+	lo, hi := r.Axis.SoftLimits()
 	good := importPoints()[0]
 	bad := []memmap.Point{
 		good,
@@ -125,7 +126,7 @@ func TestImportMapRefusesBadPoints(t *testing.T) {
 		{Freq: f80, Pos: 5000, Q: -3},
 		{Freq: f80, Pos: 5000, Temp: -1, HasTemp: true},
 	}
-	_, err := r.s.ImportMap(context.Background(), bad)
+	_, err := r.Service.ImportMap(context.Background(), bad)
 	var pe controller.PointsError
 	if !errors.As(err, &pe) {
 		t.Fatalf("import of bad points: %v, want a PointsError", err)
@@ -142,11 +143,11 @@ func TestImportMapRefusesBadPoints(t *testing.T) {
 	if !slices.Equal(got, want) {
 		t.Fatalf("bad points named %v, want %v (%v)", got, want, err)
 	}
-	if n := len(r.s.MapPoints()); n != 0 {
+	if n := len(r.Service.MapPoints()); n != 0 {
 		t.Fatalf("a refused import left %d points", n)
 	}
 	many := make([]memmap.Point, controller.MaxImportPoints+1)
-	if _, err := r.s.ImportMap(context.Background(), many); !errors.As(err, &pe) {
+	if _, err := r.Service.ImportMap(context.Background(), many); !errors.As(err, &pe) {
 		t.Fatalf("import of %d points: %v, want refused", len(many), err)
 	}
 }
@@ -157,27 +158,27 @@ func TestForgetPoint(t *testing.T) {
 	dir := openDir(t, t.TempDir())
 	st := loadState(t, dir)
 	r := newRig(t, rigOptions{svc: controller.Options{State: st}})
-	r.start(t)
+	r.Start(t)
 	ctx := context.Background()
-	if _, err := r.s.ImportMap(ctx, importPoints()); err != nil {
+	if _, err := r.Service.ImportMap(ctx, importPoints()); err != nil {
 		t.Fatal(err)
 	}
 	f := 3600 * physic.KiloHertz
-	if _, err := r.s.ForgetPoint(ctx, f+2*physic.Hertz, physic.Hertz); !errors.Is(err, controller.ErrNoPoint) {
+	if _, err := r.Service.ForgetPoint(ctx, f+2*physic.Hertz, physic.Hertz); !errors.Is(err, controller.ErrNoPoint) {
 		t.Fatalf("forget 2 Hz off with a 1 Hz tolerance: %v, want ErrNoPoint", err)
 	}
-	p, err := r.s.ForgetPoint(ctx, f+physic.Hertz/2, physic.Hertz)
+	p, err := r.Service.ForgetPoint(ctx, f+physic.Hertz/2, physic.Hertz)
 	if err != nil || p.Freq != f || p.Pos != 18569 {
 		t.Fatalf("forget %v: %+v, %v", f, p, err)
 	}
 	saved, err := memmap.Load(dir.MapPath(), memmap.Options{})
-	if err != nil || saved.Len() != 2 || r.s.Snapshot().MapPoints != 2 {
-		t.Fatalf("after forgetting: %v on disk (%v), %d in the snapshot; want 2", saved, err, r.s.Snapshot().MapPoints)
+	if err != nil || saved.Len() != 2 || r.Service.Snapshot().MapPoints != 2 {
+		t.Fatalf("after forgetting: %v on disk (%v), %d in the snapshot; want 2", saved, err, r.Service.Snapshot().MapPoints)
 	}
-	if _, err := r.s.ForgetPoint(ctx, f, physic.Hertz); !errors.Is(err, controller.ErrNoPoint) {
+	if _, err := r.Service.ForgetPoint(ctx, f, physic.Hertz); !errors.Is(err, controller.ErrNoPoint) {
 		t.Fatalf("forget it again: %v, want ErrNoPoint", err)
 	}
-	if res, err := r.s.ImportMap(ctx, nil); err != nil || res.After != 0 || r.s.Snapshot().MapPoints != 0 {
+	if res, err := r.Service.ImportMap(ctx, nil); err != nil || res.After != 0 || r.Service.Snapshot().MapPoints != 0 {
 		t.Fatalf("empty import: %+v, %v", res, err)
 	}
 }
@@ -187,18 +188,18 @@ func TestForgetPoint(t *testing.T) {
 func TestEditWithdrawnAndAfterStop(t *testing.T) {
 	r := newRig(t, rigOptions{})
 	ctx, cancel := context.WithCancel(context.Background())
-	controller.OnEditQueued(r.s, cancel) // gives up as soon as it waits: Run has not started
-	if _, err := r.s.ImportMap(ctx, importPoints()); !errors.Is(err, context.Canceled) {
+	controller.OnEditQueued(r.Service, cancel) // gives up as soon as it waits: Run has not started
+	if _, err := r.Service.ImportMap(ctx, importPoints()); !errors.Is(err, context.Canceled) {
 		t.Fatalf("import given up: %v, want context.Canceled", err)
 	}
-	controller.OnEditQueued(r.s, nil)
-	stop := r.start(t)
-	r.run(t, controller.Request{Kind: controller.Goto, Step: 30000}) // Run has passed its edits
-	if n := len(r.s.MapPoints()); n != 0 {
+	controller.OnEditQueued(r.Service, nil)
+	stop := r.Start(t)
+	r.Do(t, controller.Request{Kind: controller.Goto, Step: 30000}) // Run has passed its edits
+	if n := len(r.Service.MapPoints()); n != 0 {
 		t.Fatalf("a withdrawn import ran: %d points", n)
 	}
 	stop()
-	if _, err := r.s.ImportMap(context.Background(), importPoints()); !errors.Is(err, controller.ErrStopped) {
+	if _, err := r.Service.ImportMap(context.Background(), importPoints()); !errors.Is(err, controller.ErrStopped) {
 		t.Fatalf("import after Run returned: %v, want ErrStopped", err)
 	}
 }
@@ -211,7 +212,7 @@ func TestFollowerSettled(t *testing.T) {
 	if err != nil || id == 0 {
 		t.Fatalf("settled at %v: request %d, %v; want a Follow at once", f80, id, err)
 	}
-	st := r.wait(t, id)
+	st := r.Wait(t, id)
 	if st.Request.Kind != controller.Follow || st.Request.Source != controller.SourceAPI || st.Result == nil || st.Result.Outcome != tune.Positioned {
 		t.Fatalf("the request: %+v", st)
 	}
@@ -219,7 +220,7 @@ func TestFollowerSettled(t *testing.T) {
 		t.Fatalf("settled at the same frequency again: request %d, %v; want none", again, err)
 	}
 	fl.Update(f80, controller.SourceRadio)
-	r.loop.Clock.Advance(2 * settle)
+	r.Loop.Clock.Advance(2 * settle)
 	fl.Poll()
 	idle(t, fl, id, "the radio reporting the frequency set")
 	if _, err := fl.Settled(0, controller.SourceAPI); err == nil {

@@ -12,6 +12,7 @@ import (
 
 	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/internal/fakeloop"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/tune"
 )
 
@@ -61,26 +62,26 @@ func TestCancellationTable(t *testing.T) {
 			t.Run(fmt.Sprintf("%s while %s", ak, rk), func(t *testing.T) {
 				r := newRig(t, rigOptions{loop: fakeloop.Options{HomeSwitch: true}, svc: controller.Options{AutoTune: true}})
 				var running, arrived controller.RequestID
-				r.loop.Clock.OnSleep(until(func() bool {
-					sn := r.s.Snapshot()
+				r.Loop.Clock.OnSleep(fakeservice.Until(func() bool {
+					sn := r.Service.Snapshot()
 					if running == 0 || sn.Request != running || sn.State != busy[rk] {
 						return false
 					}
 					q := arrival(ak)
 					if q.Freq > 0 {
-						r.loop.Radio.SetFrequency(q.Freq)
+						r.Loop.Radio.SetFrequency(q.Freq)
 					}
-					arrived = r.submit(t, q)
+					arrived = r.Submit(t, q)
 					return true
 				}))
-				r.loop.Radio.SetFrequency(f80)
+				r.Loop.Radio.SetFrequency(f80)
 				q := controller.Request{Kind: rk, Source: controller.SourceAPI, Freq: f80, Step: 40000}
 				if rk == controller.Goto || rk == controller.Home {
 					q.Freq = 0
 				}
-				running = r.submit(t, q) // before Run starts: the hook reads it
-				r.start(t)
-				st := r.wait(t, running)
+				running = r.Submit(t, q) // before Run starts: the hook reads it
+				r.Start(t)
+				st := r.Wait(t, running)
 				if arrived == 0 {
 					t.Fatalf("the %s request never reached %s (ended %s: %+v)", rk, busy[rk], st.State, st.Result)
 				}
@@ -90,7 +91,7 @@ func TestCancellationTable(t *testing.T) {
 				if h := r.hardware(running); h.moving || h.keyed {
 					t.Fatalf("the %s request ended with the motor moving (%v) or the carrier on (%v)", rk, h.moving, h.keyed)
 				}
-				a := r.wait(t, arrived)
+				a := r.Wait(t, arrived)
 				if controller.Cancels(ak, rk) {
 					if st.State != controller.RequestCancelled || st.By != arrived || st.Result.Outcome != tune.Aborted {
 						t.Fatalf("the %s request: %s by %d, %s; want cancelled by %d, aborted", rk, st.State, st.By, st.Result.Outcome, arrived)
@@ -153,16 +154,16 @@ func homing(t *testing.T, o controller.Options, during func(r *rig)) (*rig, cont
 	t.Helper()
 	r := newRig(t, rigOptions{loop: fakeloop.Options{HomeSwitch: true}, untrusted: true, svc: o})
 	var home controller.RequestID
-	r.loop.Clock.OnSleep(until(func() bool {
-		if home == 0 || r.s.Snapshot().State != tune.Homing {
+	r.Loop.Clock.OnSleep(fakeservice.Until(func() bool {
+		if home == 0 || r.Service.Snapshot().State != tune.Homing {
 			return false
 		}
 		during(r)
 		return true
 	}))
-	home = r.submit(t, controller.Request{Kind: controller.Home, Source: controller.SourceOperator})
-	r.start(t) // after the submit: the hook reads home
-	return r, r.wait(t, home)
+	home = r.Submit(t, controller.Request{Kind: controller.Home, Source: controller.SourceOperator})
+	r.Start(t) // after the submit: the hook reads home
+	return r, r.Wait(t, home)
 }
 
 // A homing needs no RF: a new frequency that arrives during it waits, and runs after it, from
@@ -170,15 +171,15 @@ func homing(t *testing.T, o controller.Options, during func(r *rig)) (*rig, cont
 func TestHomingFinishesBeforeANewFrequency(t *testing.T) {
 	var follow controller.RequestID
 	r, home := homing(t, controller.Options{}, func(r *rig) {
-		follow = r.submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80})
-		if q := r.s.Snapshot().Queue; len(q) != 1 || q[0].ID != follow {
+		follow = r.Submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80})
+		if q := r.Service.Snapshot().Queue; len(q) != 1 || q[0].ID != follow {
 			t.Errorf("queue during the homing: %+v, want the follow", q)
 		}
 	})
 	if home.State != controller.RequestDone || home.Result.Outcome != tune.Homed {
 		t.Fatalf("homing: %s, %+v; want done, homed", home.State, home.Result)
 	}
-	st := r.wait(t, follow)
+	st := r.Wait(t, follow)
 	if st.Result == nil || st.Result.Outcome != tune.Positioned || st.Started.Before(home.Finished) {
 		t.Fatalf("the follow after the homing: %s, %+v, started %v (homing ended %v)", st.State, st.Result, st.Started, home.Finished)
 	}
@@ -188,17 +189,17 @@ func TestHomingFinishesBeforeANewFrequency(t *testing.T) {
 func TestStopCancelsHoming(t *testing.T) {
 	var follow, stop controller.RequestID
 	r, home := homing(t, controller.Options{}, func(r *rig) {
-		follow = r.submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80})
-		stop = r.submit(t, controller.Request{Kind: controller.Stop, Source: controller.SourceOperator})
+		follow = r.Submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80})
+		stop = r.Submit(t, controller.Request{Kind: controller.Stop, Source: controller.SourceOperator})
 	})
 	if home.State != controller.RequestCancelled || home.By != stop || home.Result.Outcome != tune.Aborted {
 		t.Fatalf("homing after a stop: %s by %d, %+v; want cancelled by %d, aborted", home.State, home.By, home.Result, stop)
 	}
-	if st := r.wait(t, follow); st.State != controller.RequestCancelled || st.By != stop || st.Result != nil {
+	if st := r.Wait(t, follow); st.State != controller.RequestCancelled || st.By != stop || st.Result != nil {
 		t.Fatalf("the waiting follow after a stop: %s by %d, result %+v; want cancelled by %d, never run", st.State, st.By, st.Result, stop)
 	}
-	if r.ax.Trusted() || r.ax.Snapshot().Moving {
-		t.Fatalf("after a stopped homing the axis is %+v, want at rest and untrusted", r.ax.Snapshot())
+	if r.Axis.Trusted() || r.Axis.Snapshot().Moving {
+		t.Fatalf("after a stopped homing the axis is %+v, want at rest and untrusted", r.Axis.Snapshot())
 	}
 }
 
@@ -207,24 +208,24 @@ func TestStopCancelsHoming(t *testing.T) {
 func TestFrequencyCancelsCalibration(t *testing.T) {
 	r := newRig(t, rigOptions{svc: controller.Options{AutoTune: true}})
 	var follow controller.RequestID
-	r.loop.Sensor.OnRead(until(func() bool {
-		if r.s.Snapshot().State != tune.Calibrating {
+	r.Loop.Sensor.OnRead(fakeservice.Until(func() bool {
+		if r.Service.Snapshot().State != tune.Calibrating {
 			return false
 		}
-		r.loop.Radio.SetFrequency(f80b)
-		follow = r.submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80b})
+		r.Loop.Radio.SetFrequency(f80b)
+		follow = r.Submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80b})
 		return true
 	}))
-	r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	cal := r.wait(t, r.submit(t, controller.Request{Kind: controller.Calibrate, Freq: f80, Source: controller.SourceOperator}))
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	cal := r.Wait(t, r.Submit(t, controller.Request{Kind: controller.Calibrate, Freq: f80, Source: controller.SourceOperator}))
 	if cal.State != controller.RequestCancelled || cal.By != follow || cal.Result.Outcome != tune.Aborted {
 		t.Fatalf("calibration: %s by %d, %+v; want cancelled by %d", cal.State, cal.By, cal.Result, follow)
 	}
 	if h := r.hardware(cal.ID); h.keyed || h.moving {
 		t.Fatal("the cancelled calibration left the carrier on or the motor moving")
 	}
-	if st := r.wait(t, follow); st.Result.Outcome != tune.Tuned || st.Result.Freq != f80b {
+	if st := r.Wait(t, follow); st.Result.Outcome != tune.Tuned || st.Result.Freq != f80b {
 		t.Fatalf("the follow after it: %+v", st.Result)
 	}
 }
@@ -261,23 +262,23 @@ func TestQueueRules(t *testing.T) {
 			ids := map[string]controller.RequestID{}
 			var sub *controller.Subscription
 			r, home := homing(t, controller.Options{}, func(r *rig) {
-				sub = r.s.Subscribe(1 << 16)
+				sub = r.Service.Subscribe(1 << 16)
 				for _, a := range c.arrivals {
-					ids[a.name] = r.submit(t, a.q)
+					ids[a.name] = r.Submit(t, a.q)
 				}
 			})
 			if home.Result.Outcome != tune.Homed {
 				t.Fatalf("homing: %+v", home.Result)
 			}
 			for _, a := range c.arrivals {
-				st := r.wait(t, ids[a.name])
+				st := r.Wait(t, ids[a.name])
 				runs := slices.Contains(c.runs, a.name)
 				if runs != (st.State == controller.RequestDone) || !runs && st.State != controller.RequestReplaced {
 					t.Errorf("%s: %s (by %d); want it to run: %v", a.name, st.State, st.By, runs)
 				}
 			}
 			var order []string
-			for _, e := range drain(sub) {
+			for _, e := range fakeservice.Drain(sub) {
 				if e.Kind != controller.EventRequest || e.Status.State != controller.RequestRunning {
 					continue
 				}
@@ -297,25 +298,25 @@ func TestQueueRules(t *testing.T) {
 // An ID goes from Submit to Request, to the tuner's events and the result, and to Wait.
 func TestRequestIDsRoundTrip(t *testing.T) {
 	r := newRig(t, rigOptions{svc: controller.Options{History: 16}})
-	sub := r.s.Subscribe(1 << 16)
-	r.loop.Radio.SetFrequency(f80)
-	id := r.submit(t, controller.Request{Kind: controller.Tune, Freq: f80, Source: controller.SourceAPI})
-	if st, ok := r.s.Request(id); !ok || st.ID != id || st.State != controller.RequestQueued || st.Request.Source != controller.SourceAPI {
+	sub := r.Service.Subscribe(1 << 16)
+	r.Loop.Radio.SetFrequency(f80)
+	id := r.Submit(t, controller.Request{Kind: controller.Tune, Freq: f80, Source: controller.SourceAPI})
+	if st, ok := r.Service.Request(id); !ok || st.ID != id || st.State != controller.RequestQueued || st.Request.Source != controller.SourceAPI {
 		t.Fatalf("Request(%d) before Run: %+v, %v", id, st, ok)
 	}
-	if q := r.s.Snapshot().Queue; len(q) != 1 || q[0].ID != id {
+	if q := r.Service.Snapshot().Queue; len(q) != 1 || q[0].ID != id {
 		t.Fatalf("queue before Run: %+v", q)
 	}
-	stop := r.start(t)
-	st := r.wait(t, id)
+	stop := r.Start(t)
+	st := r.Wait(t, id)
 	if st.State != controller.RequestDone || st.Result == nil || st.Result.Outcome != tune.Tuned || st.Started.IsZero() || st.Finished.Before(st.Started) {
 		t.Fatalf("Wait(%d): %+v", id, st)
 	}
-	if got, _ := r.s.Request(id); got.Result != st.Result {
+	if got, _ := r.Service.Request(id); got.Result != st.Result {
 		t.Fatalf("Request(%d) and Wait disagree: %+v, %+v", id, got, st)
 	}
 	var result, final bool
-	for _, e := range drain(sub) {
+	for _, e := range fakeservice.Drain(sub) {
 		switch {
 		case e.Kind == controller.EventTune && e.Tune.Kind == tune.KindResult:
 			result = e.Request == id && e.Tune.Result.Outcome == tune.Tuned
@@ -326,21 +327,21 @@ func TestRequestIDsRoundTrip(t *testing.T) {
 	if !result || !final {
 		t.Fatalf("the result event carries the request: %v; the final request event: %v", result, final)
 	}
-	if sn := r.s.Snapshot(); sn.LastRequest != id || sn.Last.Pos != st.Result.Pos {
+	if sn := r.Service.Snapshot(); sn.LastRequest != id || sn.Last.Pos != st.Result.Pos {
 		t.Fatalf("snapshot's last request %d at %d, want %d at %d", sn.LastRequest, sn.Last.Pos, id, st.Result.Pos)
 	}
 	// The history keeps the last 16 (as configured): stops are done at once.
 	var last controller.RequestID
 	for range 40 {
-		last = r.submit(t, controller.Request{Kind: controller.Stop, Source: controller.SourceOperator})
+		last = r.Submit(t, controller.Request{Kind: controller.Stop, Source: controller.SourceOperator})
 	}
-	if _, ok := r.s.Request(id); ok {
+	if _, ok := r.Service.Request(id); ok {
 		t.Fatalf("request %d still remembered after 40 more with a history of 16", id)
 	}
-	if st, ok := r.s.Request(last); !ok || st.State != controller.RequestDone {
+	if st, ok := r.Service.Request(last); !ok || st.State != controller.RequestDone {
 		t.Fatalf("the latest request: %+v, %v", st, ok)
 	}
-	if _, err := r.s.Wait(context.Background(), id); !errors.Is(err, controller.ErrUnknownRequest) {
+	if _, err := r.Service.Wait(context.Background(), id); !errors.Is(err, controller.ErrUnknownRequest) {
 		t.Fatalf("Wait for a forgotten request: %v, want ErrUnknownRequest", err)
 	}
 	stop()
@@ -353,32 +354,32 @@ func TestRunCancelsWhatWaits(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
 	var follow controller.RequestID
-	r.loop.Clock.OnSleep(until(func() bool {
-		if r.s.Snapshot().State != tune.Homing {
+	r.Loop.Clock.OnSleep(fakeservice.Until(func() bool {
+		if r.Service.Snapshot().State != tune.Homing {
 			return false
 		}
-		follow = r.submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80})
+		follow = r.Submit(t, controller.Request{Kind: controller.Follow, Source: controller.SourceRadio, Freq: f80})
 		cancel() // the daemon is told to stop
 		return true
 	}))
-	home := r.submit(t, controller.Request{Kind: controller.Home, Source: controller.SourceOperator})
+	home := r.Submit(t, controller.Request{Kind: controller.Home, Source: controller.SourceOperator})
 	errc := make(chan error, 1)
-	go func() { errc <- r.s.Run(ctx) }()
+	go func() { errc <- r.Service.Run(ctx) }()
 	select {
 	case err := <-errc:
 		if err != nil {
 			t.Fatalf("Run: %v", err)
 		}
-	case <-time.After(safety):
+	case <-time.After(fakeservice.Safety):
 		t.Fatal("Run did not return")
 	}
-	if st := r.wait(t, home); st.State != controller.RequestCancelled || st.By != 0 || st.Result.Outcome != tune.Aborted {
+	if st := r.Wait(t, home); st.State != controller.RequestCancelled || st.By != 0 || st.Result.Outcome != tune.Aborted {
 		t.Fatalf("homing at shutdown: %s by %d, %+v; want cancelled by no request, aborted", st.State, st.By, st.Result)
 	}
-	if st := r.wait(t, follow); st.State != controller.RequestCancelled || st.Result != nil || st.By != 0 {
+	if st := r.Wait(t, follow); st.State != controller.RequestCancelled || st.Result != nil || st.By != 0 {
 		t.Fatalf("the follow waiting at shutdown: %s by %d, %+v; want cancelled by no request, never run", st.State, st.By, st.Result)
 	}
-	if sn := r.s.Snapshot(); !sn.Stopped || len(sn.Queue) != 0 || sn.Busy {
+	if sn := r.Service.Snapshot(); !sn.Stopped || len(sn.Queue) != 0 || sn.Busy {
 		t.Fatalf("snapshot after Run returned: stopped %v, queue %+v, busy %v", sn.Stopped, sn.Queue, sn.Busy)
 	}
 }

@@ -5,9 +5,8 @@ import (
 	"testing"
 
 	"github.com/tankd/tankd/controller"
-	"github.com/tankd/tankd/controller/internal/fakeloop"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/memmap"
-	"github.com/tankd/tankd/controller/statedir"
 	"github.com/tankd/tankd/controller/tune"
 )
 
@@ -18,18 +17,18 @@ func TestNewFrequencyCancelsRunningTune(t *testing.T) {
 	r := newRig(t, rigOptions{})
 	f1, f2 := f80, f80b
 	var second controller.RequestID
-	r.loop.Sensor.OnRead(until(func() bool {
-		sn := r.s.Snapshot()
+	r.Loop.Sensor.OnRead(fakeservice.Until(func() bool {
+		sn := r.Service.Snapshot()
 		if sn.State != tune.Refining || sn.Freq != f1 {
 			return false
 		}
-		r.loop.Radio.SetFrequency(f2)
-		second = r.submit(t, controller.Request{Kind: controller.Tune, Freq: f2})
+		r.Loop.Radio.SetFrequency(f2)
+		second = r.Submit(t, controller.Request{Kind: controller.Tune, Freq: f2})
 		return true
 	}))
-	r.start(t)
-	r.loop.Radio.SetFrequency(f1)
-	first := r.wait(t, r.submit(t, controller.Request{Kind: controller.Tune, Freq: f1}))
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f1)
+	first := r.Wait(t, r.Submit(t, controller.Request{Kind: controller.Tune, Freq: f1}))
 	if first.Result == nil || first.Result.Outcome != tune.Aborted || first.Result.Freq != f1 {
 		t.Fatalf("first request %s with %+v, want aborted at %v", first.State, first.Result, f1)
 	}
@@ -39,11 +38,11 @@ func TestNewFrequencyCancelsRunningTune(t *testing.T) {
 	if h := r.hardware(first.ID); h.moving || h.keyed {
 		t.Fatal("an aborted tune left the motor running or the carrier on")
 	}
-	st := r.wait(t, second)
+	st := r.Wait(t, second)
 	if st.Result == nil || st.Result.Outcome != tune.Tuned || st.Result.Freq != f2 {
 		t.Fatalf("second request: %+v, want tuned at %v", st.Result, f2)
 	}
-	snap := r.s.Snapshot()
+	snap := r.Service.Snapshot()
 	if snap.Last == nil || snap.Last.Freq != f2 || snap.Busy || snap.State != tune.Idle || snap.MapPoints != 1 || snap.LastRequest != second {
 		t.Fatalf("snapshot after the tune: %+v", snap)
 	}
@@ -51,36 +50,24 @@ func TestNewFrequencyCancelsRunningTune(t *testing.T) {
 
 func TestFollowPrepositionsWithoutRF(t *testing.T) {
 	r := newRig(t, rigOptions{})
-	r.start(t)
-	_, res := r.run(t, controller.Request{Kind: controller.Follow, Freq: f80})
-	if res.Outcome != tune.Positioned || res.RFTime != 0 || r.loop.Sensor.Reads() != 0 || r.loop.Radio.Keys() != 0 {
+	r.Start(t)
+	_, res := r.Do(t, controller.Request{Kind: controller.Follow, Freq: f80})
+	if res.Outcome != tune.Positioned || res.RFTime != 0 || r.Loop.Sensor.Reads() != 0 || r.Loop.Radio.Keys() != 0 {
 		t.Fatalf("follow: %s, RF %v, %d coupler reads, %d keys; want positioned with no RF at all",
-			res.Outcome, res.RFTime, r.loop.Sensor.Reads(), r.loop.Radio.Keys())
+			res.Outcome, res.RFTime, r.Loop.Sensor.Reads(), r.Loop.Radio.Keys())
 	}
 }
 
 // What a calibration learns is on disk as soon as the request is done, not only at shutdown;
 // on the way out the axis is halted and the clean stop is there for the daemon to record.
 func TestServicePersistsAndShutsDown(t *testing.T) {
-	dir, err := statedir.Open(t.TempDir(), statedir.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer dir.Close()
-	l, err := fakeloop.New(fakeloop.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	st, err := controller.LoadState(dir, controller.StateOptions{Map: memmap.Options{Prior: l.Prior}, Clock: l.Clock})
-	if err != nil {
-		t.Fatal(err)
-	}
-	r := newRig(t, rigOptions{svc: controller.Options{State: st}})
-	stop := r.start(t)
-	if _, ok := r.s.CleanStop(); ok {
+	dir := openDir(t, t.TempDir())
+	r := newRig(t, rigOptions{svc: controller.Options{State: loadState(t, dir)}})
+	stop := r.Start(t)
+	if _, ok := r.Service.CleanStop(); ok {
 		t.Fatal("a clean stop before Run has returned")
 	}
-	_, res := r.run(t, controller.Request{Kind: controller.Calibrate, Freq: f80})
+	_, res := r.Do(t, controller.Request{Kind: controller.Calibrate, Freq: f80})
 	if res.Outcome != tune.Calibrated {
 		t.Fatalf("calibrate: %s (%v)", res.Outcome, res.Err)
 	}
@@ -94,25 +81,25 @@ func TestServicePersistsAndShutsDown(t *testing.T) {
 	}
 	stop()
 	select {
-	case <-r.s.Done():
+	case <-r.Service.Done():
 	default:
 		t.Fatal("Done not closed after Run returned")
 	}
-	if a := r.ax.Snapshot(); a.Enabled || a.Moving {
+	if a := r.Axis.Snapshot(); a.Enabled || a.Moving {
 		t.Fatalf("after shutdown the axis is %+v, want halted", a)
 	}
-	mk, ok := r.s.CleanStop()
-	if !ok || mk.Position != r.ax.Position() || !mk.Trusted {
-		t.Fatalf("clean stop %+v (ok %v), want the trusted position %d", mk, ok, r.ax.Position())
+	mk, ok := r.Service.CleanStop()
+	if !ok || mk.Position != r.Axis.Position() || !mk.Trusted {
+		t.Fatalf("clean stop %+v (ok %v), want the trusted position %d", mk, ok, r.Axis.Position())
 	}
-	if _, err := r.s.Submit(controller.Request{Kind: controller.Preposition, Freq: f80, Source: controller.SourceAPI}); !errors.Is(err, controller.ErrStopped) {
+	if _, err := r.Service.Submit(controller.Request{Kind: controller.Preposition, Freq: f80, Source: controller.SourceAPI}); !errors.Is(err, controller.ErrStopped) {
 		t.Fatalf("submit after Run returned: %v, want ErrStopped", err)
 	}
 }
 
 func TestSubmitRejectsBadRequests(t *testing.T) {
 	r := newRig(t, rigOptions{})
-	lo, hi := r.ax.SoftLimits()
+	lo, hi := r.Axis.SoftLimits()
 	for _, q := range []controller.Request{
 		{Kind: controller.Tune, Source: controller.SourceAPI},
 		{Kind: "dance", Source: controller.SourceAPI},
@@ -123,15 +110,15 @@ func TestSubmitRejectsBadRequests(t *testing.T) {
 		{Kind: controller.Goto, Step: hi + 1, Source: controller.SourceAPI},
 		{Kind: controller.Home, Source: controller.SourceAPI}, // the rig's loop has no home switch
 	} {
-		if id, err := r.s.Submit(q); err == nil {
+		if id, err := r.Service.Submit(q); err == nil {
 			t.Errorf("accepted %+v as request %d", q, id)
 		}
 	}
-	r.submit(t, controller.Request{Kind: controller.Goto, Step: (lo + hi) / 2})
-	if id, err := r.s.Submit(controller.Request{Kind: controller.Stop, Source: controller.SourceOperator}); err != nil || id == 0 {
+	r.Submit(t, controller.Request{Kind: controller.Goto, Step: (lo + hi) / 2})
+	if id, err := r.Service.Submit(controller.Request{Kind: controller.Stop, Source: controller.SourceOperator}); err != nil || id == 0 {
 		t.Errorf("stop: %d, %v", id, err)
 	}
-	if q := r.s.Snapshot().Queue; len(q) != 0 {
+	if q := r.Service.Snapshot().Queue; len(q) != 0 {
 		t.Errorf("a stop left %+v waiting", q)
 	}
 }
@@ -143,34 +130,34 @@ func TestSubmitRejectsBadRequests(t *testing.T) {
 func TestServiceSurvivesPanics(t *testing.T) {
 	r := newRig(t, rigOptions{})
 	armed := true
-	r.loop.Sensor.OnRead(func() {
-		if armed && r.s.Snapshot().State == tune.Refining {
+	r.Loop.Sensor.OnRead(func() {
+		if armed && r.Service.Snapshot().State == tune.Refining {
 			armed = false
 			panic("injected: a driver bug")
 		}
 	})
-	r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	st, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80})
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	st, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80})
 	if res.Outcome != tune.Fault || !errors.Is(res.Err, tune.ErrInternal) {
 		t.Fatalf("the panicking tune: %s (%v), want a fault", res.Outcome, res.Err)
 	}
 	if h := r.hardware(st.ID); h.moving || h.keyed {
 		t.Fatal("the panic left the motor running or the carrier on")
 	}
-	if snap := r.s.Snapshot(); snap.Fault == "" || snap.State != tune.Faulted {
+	if snap := r.Service.Snapshot(); snap.Fault == "" || snap.State != tune.Faulted {
 		t.Fatalf("snapshot after the panic: fault %q, state %s", snap.Fault, snap.State)
 	}
-	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Fault || r.loop.Radio.Transmitting() {
+	if _, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Fault || r.Loop.Radio.Transmitting() {
 		t.Fatalf("a tune with the fault latched: %s", res.Outcome)
 	}
-	if _, res := r.run(t, controller.Request{Kind: controller.Reset}); res.Outcome != tune.Reset {
+	if _, res := r.Do(t, controller.Request{Kind: controller.Reset}); res.Outcome != tune.Reset {
 		t.Fatalf("reset: %s (%v)", res.Outcome, res.Err)
 	}
-	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
+	if _, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
 		t.Fatalf("after the reset: %s (%v)", res.Outcome, res.Err)
 	}
-	if snap := r.s.Snapshot(); snap.Fault != "" {
+	if snap := r.Service.Snapshot(); snap.Fault != "" {
 		t.Fatalf("fault %q still shown after the reset", snap.Fault)
 	}
 }
@@ -185,15 +172,15 @@ func TestServiceSurvivesAPanicAfterAnOperation(t *testing.T) {
 			panic("injected: a bug after the operation")
 		}
 	}}})
-	r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	if _, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
 		t.Fatalf("the first tune: %s (%v)", res.Outcome, res.Err)
 	}
-	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Fault {
+	if _, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Fault {
 		t.Fatalf("after a panic outside the operation: %s, want the fault latched", res.Outcome)
 	}
-	if r.s.Snapshot().Fault == "" {
+	if r.Service.Snapshot().Fault == "" {
 		t.Fatal("no fault shown")
 	}
 }
@@ -205,7 +192,7 @@ func TestNewServiceRefusesAnObserver(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	_, err = controller.NewService(tune.Deps{Axis: r.ax, Sensor: r.loop.Sensor, Clock: r.loop.Clock, Map: m,
+	_, err = controller.NewService(tune.Deps{Axis: r.Axis, Sensor: r.Loop.Sensor, Clock: r.Loop.Clock, Map: m,
 		Observer: tune.ObserverFunc(func(tune.Event) {})}, tune.Options{}, controller.Options{})
 	if err == nil {
 		t.Fatal("a service built with an observer of the caller's")
@@ -216,22 +203,22 @@ func TestNewServiceRefusesAnObserver(t *testing.T) {
 // where they must be.
 func TestGotoAndReference(t *testing.T) {
 	r := newRig(t, rigOptions{})
-	r.start(t)
-	st, res := r.run(t, controller.Request{Kind: controller.Goto, Step: 30000})
-	if res.Outcome != tune.Positioned || r.ax.Position() != 30000 || res.Pos != 30000 || r.loop.Radio.Keys() != 0 {
-		t.Fatalf("goto 30000: %s at %d (axis %d), %d keys", res.Outcome, res.Pos, r.ax.Position(), r.loop.Radio.Keys())
+	r.Start(t)
+	st, res := r.Do(t, controller.Request{Kind: controller.Goto, Step: 30000})
+	if res.Outcome != tune.Positioned || r.Axis.Position() != 30000 || res.Pos != 30000 || r.Loop.Radio.Keys() != 0 {
+		t.Fatalf("goto 30000: %s at %d (axis %d), %d keys", res.Outcome, res.Pos, r.Axis.Position(), r.Loop.Radio.Keys())
 	}
 	// The approach ends moving up with the play taken up: the shaft trails the motor by half
 	// the fake's 40-step play.
-	if sh := r.loop.Drive.Shaft(); sh != 30000-20 {
+	if sh := r.Loop.Drive.Shaft(); sh != 30000-20 {
 		t.Fatalf("goto %d left the shaft at %.1f, want 29980 (approached from below)", st.Request.Step, sh)
 	}
-	_, res = r.run(t, controller.Request{Kind: controller.Reference, Step: 12345})
-	if res.Outcome != tune.Referenced || r.ax.Position() != 12345 || !r.ax.Trusted() {
-		t.Fatalf("reference 12345: %s, axis at %d (trusted %v)", res.Outcome, r.ax.Position(), r.ax.Trusted())
+	_, res = r.Do(t, controller.Request{Kind: controller.Reference, Step: 12345})
+	if res.Outcome != tune.Referenced || r.Axis.Position() != 12345 || !r.Axis.Trusted() {
+		t.Fatalf("reference 12345: %s, axis at %d (trusted %v)", res.Outcome, r.Axis.Position(), r.Axis.Trusted())
 	}
-	r.ax.Distrust("test: the position is lost")
-	if _, res := r.run(t, controller.Request{Kind: controller.Goto, Step: 20000}); res.Outcome != tune.NeedsReference {
+	r.Axis.Distrust("test: the position is lost")
+	if _, res := r.Do(t, controller.Request{Kind: controller.Goto, Step: 20000}); res.Outcome != tune.NeedsReference {
 		t.Fatalf("goto with the position lost: %s (%v), want needs-reference", res.Outcome, res.Err)
 	}
 }

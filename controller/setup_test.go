@@ -1,27 +1,18 @@
 package controller_test
 
 import (
-	"context"
 	"sync"
 	"testing"
-	"time"
 
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/internal/fakeloop"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/memmap"
-	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/statedir"
 	"github.com/tankd/tankd/controller/tune"
 )
-
-// nominal is the gear play the controller assumes before a calibration: the fake loop's 40 steps
-// and half again, plus 4 (the rule the station descriptions use; from memory).
-const nominal = 64
-
-// safety bounds every wait for the service's goroutine. It is only a safety net for a broken
-// service: on the virtual clock an operation takes microseconds of real time.
-const safety = 30 * time.Second
 
 // Frequencies the tests use: on 80 m, 160 m and 40 m, where the fake loop tunes.
 var (
@@ -34,11 +25,10 @@ var (
 // hw is the hardware's state when an operation was reported done.
 type hw struct{ moving, keyed bool }
 
-// rig is a service on a fake loop.
+// rig is a service on a fake loop that notes the hardware's state at the end of every
+// operation.
 type rig struct {
-	loop *fakeloop.Loop
-	ax   *motion.Axis
-	s    *controller.Service
+	*fakeservice.Rig
 
 	mu sync.Mutex
 	hw map[controller.RequestID]hw
@@ -47,111 +37,52 @@ type rig struct {
 type rigOptions struct {
 	loop fakeloop.Options
 	tune tune.Options
-	svc  controller.Options
+	// svc are the service's options; a State is the test's own, loaded from a directory it
+	// keeps.
+	svc controller.Options
 	// untrusted leaves the axis unreferenced (a loop with a home switch then homes first)
 	untrusted bool
 }
 
 func newRig(t *testing.T, o rigOptions) *rig {
 	t.Helper()
-	l, err := fakeloop.New(o.loop)
-	if err != nil {
-		t.Fatal(err)
-	}
-	ax, err := motion.NewAxis(l.Drive, l.Clock, l.Switches(), l.AxisOptions(nominal))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := ax.Enable(context.Background()); err != nil {
-		t.Fatal(err)
-	}
-	if !o.untrusted {
-		ax.Reference(l.Drive.Motor())
-	}
-	var m *memmap.Map // with a State, the State's map (its options carry the prior)
-	if o.svc.State == nil {
-		if m, err = memmap.New(memmap.Options{Prior: l.Prior}); err != nil {
-			t.Fatal(err)
-		}
-	}
-	to := o.tune
-	to.Transmit, to.NominalBacklash, to.HasHome = true, nominal, l.Home != nil
-	r := &rig{loop: l, ax: ax, hw: map[controller.RequestID]hw{}}
+	r := &rig{hw: map[controller.RequestID]hw{}}
 	user := o.svc.AfterOperation
 	o.svc.AfterOperation = func(st controller.RequestStatus) {
 		r.mu.Lock()
-		r.hw[st.ID] = hw{moving: ax.Snapshot().Moving, keyed: l.Radio.Transmitting()}
+		r.hw[st.ID] = hw{moving: r.Axis.Snapshot().Moving, keyed: r.Loop.Radio.Transmitting()}
 		r.mu.Unlock()
 		if user != nil {
 			user(st)
 		}
 	}
-	s, err := controller.NewService(tune.Deps{Axis: ax, Sensor: l.Sensor, Clock: l.Clock, Map: m,
-		Transmitter: l.Radio, Thermometer: l.Thermometer}, to, o.svc)
-	if err != nil {
-		t.Fatal(err)
-	}
-	r.s = s
+	r.Rig = fakeservice.New(t, fakeservice.Options{Loop: o.loop, Tune: o.tune, Service: o.svc, Untrusted: o.untrusted})
 	return r
 }
 
-// start runs the service until the returned stop is called (or the test ends), and checks that
-// Run returns nil.
-func (r *rig) start(t *testing.T) (stop func()) {
+// openDir opens the state directory at path until the test ends.
+func openDir(t *testing.T, path string) *statedir.Dir {
 	t.Helper()
-	ctx, cancel := context.WithCancel(context.Background())
-	errc := make(chan error, 1)
-	go func() { errc <- r.s.Run(ctx) }()
-	var once sync.Once
-	stop = func() {
-		once.Do(func() {
-			cancel()
-			select {
-			case err := <-errc:
-				if err != nil {
-					t.Errorf("Run: %v", err)
-				}
-			case <-time.After(safety):
-				t.Error("Run did not return")
-			}
-		})
+	dir, err := statedir.Open(path, statedir.Options{})
+	if err != nil {
+		t.Fatal(err)
 	}
-	t.Cleanup(stop)
-	return stop
+	t.Cleanup(func() { dir.Close() })
+	return dir
 }
 
-func (r *rig) submit(t *testing.T, q controller.Request) controller.RequestID {
+// loadState loads the state kept in dir, on a clock and a prior of its own.
+func loadState(t *testing.T, dir *statedir.Dir) *controller.State {
 	t.Helper()
-	if q.Source == "" {
-		q.Source = controller.SourceAPI
-	}
-	id, err := r.s.Submit(q)
+	l, err := fakeloop.New(fakeloop.Options{})
 	if err != nil {
-		t.Fatalf("submit %+v: %v", q, err)
+		t.Fatal(err)
 	}
-	return id
-}
-
-// wait blocks until request id is final.
-func (r *rig) wait(t *testing.T, id controller.RequestID) controller.RequestStatus {
-	t.Helper()
-	ctx, cancel := context.WithTimeout(context.Background(), safety)
-	defer cancel()
-	st, err := r.s.Wait(ctx, id)
+	st, err := controller.LoadState(dir, controller.StateOptions{Map: memmap.Options{Prior: l.Prior}, Clock: l.Clock})
 	if err != nil {
-		t.Fatalf("wait for request %d: %v", id, err)
+		t.Fatal(err)
 	}
 	return st
-}
-
-// run submits q and waits for it; the result must be there.
-func (r *rig) run(t *testing.T, q controller.Request) (controller.RequestStatus, tune.Result) {
-	t.Helper()
-	st := r.wait(t, r.submit(t, q))
-	if st.Result == nil {
-		t.Fatalf("%s request %d ended %s without a result", q.Kind, st.ID, st.State)
-	}
-	return st, *st.Result
 }
 
 // hardware is the hardware's state when request id was reported done.
@@ -159,31 +90,4 @@ func (r *rig) hardware(id controller.RequestID) hw {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	return r.hw[id]
-}
-
-// drain reads every event waiting in sub.
-func drain(sub *controller.Subscription) []controller.Event {
-	var out []controller.Event
-	for {
-		select {
-		case e, ok := <-sub.Events():
-			if !ok {
-				return out
-			}
-			out = append(out, e)
-		default:
-			return out
-		}
-	}
-}
-
-// until runs f, as a hook on the service's goroutine, until it reports that it acted; then never
-// again.
-func until(f func() bool) func() {
-	done := false
-	return func() {
-		if !done {
-			done = f()
-		}
-	}
 }

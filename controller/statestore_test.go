@@ -15,29 +15,6 @@ import (
 	"github.com/tankd/tankd/controller/tune"
 )
 
-func openDir(t *testing.T, path string) *statedir.Dir {
-	t.Helper()
-	dir, err := statedir.Open(path, statedir.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { dir.Close() })
-	return dir
-}
-
-func loadState(t *testing.T, dir *statedir.Dir) *controller.State {
-	t.Helper()
-	l, err := fakeloop.New(fakeloop.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	st, err := controller.LoadState(dir, controller.StateOptions{Map: memmap.Options{Prior: l.Prior}, Clock: l.Clock})
-	if err != nil {
-		t.Fatal(err)
-	}
-	return st
-}
-
 // Each file is written only when what it holds changed: the map when an operation taught it
 // something (and not again on the way out if nothing changed since), the calibration when the
 // measured play differs, the position hint when the motor moved.
@@ -45,7 +22,7 @@ func TestStateWritesOnlyWhatChanged(t *testing.T) {
 	dir := openDir(t, t.TempDir())
 	st := loadState(t, dir)
 	r := newRig(t, rigOptions{svc: controller.Options{State: st}})
-	stop := r.start(t)
+	stop := r.Start(t)
 	want := controller.StateWrites{}
 	check := func(what string) {
 		t.Helper()
@@ -54,7 +31,7 @@ func TestStateWritesOnlyWhatChanged(t *testing.T) {
 		}
 	}
 	check("loading")
-	r.loop.Radio.SetFrequency(f80)
+	r.Loop.Radio.SetFrequency(f80)
 	steps := []struct {
 		what   string
 		q      controller.Request
@@ -71,11 +48,11 @@ func TestStateWritesOnlyWhatChanged(t *testing.T) {
 	}
 	var backlash int64
 	for _, s := range steps {
-		before := r.ax.Position()
+		before := r.Axis.Position()
 		if s.q.Kind == controller.Reference {
 			s.q.Step = before
 		}
-		_, res := r.run(t, s.q)
+		_, res := r.Do(t, s.q)
 		if res.Err != nil {
 			t.Fatalf("%s: %s (%v)", s.what, res.Outcome, res.Err)
 		}
@@ -94,7 +71,7 @@ func TestStateWritesOnlyWhatChanged(t *testing.T) {
 		if s.cal {
 			want.Calibration++
 		}
-		if r.ax.Position() != before {
+		if r.Axis.Position() != before {
 			want.Hint++
 		}
 		check(s.what)
@@ -105,8 +82,8 @@ func TestStateWritesOnlyWhatChanged(t *testing.T) {
 	stop()
 	check("the way out, with nothing new since the last save")
 	h, ok, err := dir.Hint()
-	if err != nil || !ok || h.Position != r.ax.Position() {
-		t.Fatalf("hint on disk: %+v, %v, %v; want the last position %d", h, ok, err, r.ax.Position())
+	if err != nil || !ok || h.Position != r.Axis.Position() {
+		t.Fatalf("hint on disk: %+v, %v, %v; want the last position %d", h, ok, err, r.Axis.Position())
 	}
 	// A second run on the same directory starts from what the first saved, and writes nothing
 	// it did not change.
@@ -123,10 +100,10 @@ func TestStateWritesOnlyWhatChanged(t *testing.T) {
 		t.Fatalf("second start: %d map points, notices %q", st2.Map().Len(), st2.Notices())
 	}
 	r2 := newRig(t, rigOptions{svc: controller.Options{State: st2}})
-	if !r2.s.Tuner().Calibrated() || r2.ax.Snapshot().Backlash != backlash {
-		t.Fatalf("the stored calibration was not installed: calibrated %v, axis backlash %d", r2.s.Tuner().Calibrated(), r2.ax.Snapshot().Backlash)
+	if !r2.Service.Tuner().Calibrated() || r2.Axis.Snapshot().Backlash != backlash {
+		t.Fatalf("the stored calibration was not installed: calibrated %v, axis backlash %d", r2.Service.Tuner().Calibrated(), r2.Axis.Snapshot().Backlash)
 	}
-	r2.start(t)()
+	r2.Start(t)()
 	if w := st2.Writes(); w != (controller.StateWrites{}) {
 		t.Fatalf("a run that did nothing wrote %+v", w)
 	}
@@ -160,10 +137,10 @@ func TestStateSetsAsideDamagedFiles(t *testing.T) {
 		}
 	}
 	r := newRig(t, rigOptions{svc: controller.Options{State: st, Notices: []string{"the daemon's own"}}})
-	if got := r.s.Snapshot().Notices; len(got) != 3 || got[0] != notices[0] || got[2] != "the daemon's own" {
+	if got := r.Service.Snapshot().Notices; len(got) != 3 || got[0] != notices[0] || got[2] != "the daemon's own" {
 		t.Fatalf("snapshot notices %q", got)
 	}
-	r.start(t)
+	r.Start(t)
 	tuneAt(t, r, f80)
 	if m, err := memmap.Load(dir.MapPath(), memmap.Options{}); err != nil || m.Len() != 1 {
 		t.Fatalf("map written after the tune: %v, %v", m, err)
@@ -184,9 +161,9 @@ func TestStateLeavesAnUnreadableCalibrationAlone(t *testing.T) {
 		t.Fatalf("notices %q, want one about the calibration", st.Notices())
 	}
 	r := newRig(t, rigOptions{svc: controller.Options{State: st}})
-	r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	if _, res := r.run(t, controller.Request{Kind: controller.Calibrate, Freq: f80}); res.Outcome != tune.Calibrated {
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	if _, res := r.Do(t, controller.Request{Kind: controller.Calibrate, Freq: f80}); res.Outcome != tune.Calibrated {
 		t.Fatalf("calibrate: %s (%v)", res.Outcome, res.Err)
 	}
 	if w := st.Writes(); w.Calibration != 0 {

@@ -7,6 +7,7 @@ import (
 
 	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/internal/fakeloop"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/tune"
 )
 
@@ -33,17 +34,17 @@ func consecutive(t *testing.T, what string, evs []controller.Event) {
 func TestManySubscribers(t *testing.T) {
 	r := newRig(t, rigOptions{})
 	const depth = 1 << 16 // far more than one tune's events
-	subs := []*controller.Subscription{r.s.Subscribe(depth), r.s.Subscribe(depth), r.s.Subscribe(depth)}
-	stop := r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	st, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80})
+	subs := []*controller.Subscription{r.Service.Subscribe(depth), r.Service.Subscribe(depth), r.Service.Subscribe(depth)}
+	stop := r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	st, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80})
 	if res.Outcome != tune.Tuned {
 		t.Fatalf("tune: %s (%v)", res.Outcome, res.Err)
 	}
 	stop() // no events after Run has returned
 	var first []controller.Event
 	for i, sub := range subs {
-		evs := drain(sub)
+		evs := fakeservice.Drain(sub)
 		sub.Close()
 		if sub.Dropped() != 0 {
 			t.Fatalf("subscriber %d dropped %d events with room for %d", i, sub.Dropped(), depth)
@@ -94,16 +95,16 @@ func TestManySubscribers(t *testing.T) {
 func TestSlowSubscriberNeverBlocksTheTuner(t *testing.T) {
 	r := newRig(t, rigOptions{})
 	const depth = 4
-	slow := r.s.Subscribe(depth)
-	all := r.s.Subscribe(1 << 16)
-	stop := r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
+	slow := r.Service.Subscribe(depth)
+	all := r.Service.Subscribe(1 << 16)
+	stop := r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	if _, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
 		t.Fatalf("tune: %s (%v)", res.Outcome, res.Err)
 	}
 	stop()
-	every := drain(all)
-	kept := drain(slow)
+	every := fakeservice.Drain(all)
+	kept := fakeservice.Drain(slow)
 	if all.Dropped() != 0 || len(every) < 100 {
 		t.Fatalf("the full subscriber got %d events and dropped %d; a tune makes hundreds", len(every), all.Dropped())
 	}
@@ -121,16 +122,16 @@ func TestSlowSubscriberNeverBlocksTheTuner(t *testing.T) {
 func TestSnapshotFreshDuringScan(t *testing.T) {
 	// A poor prior (σ 10 % of the position, 800 steps off) makes for a long coarse scan.
 	r := newRig(t, rigOptions{loop: fakeloop.Options{PriorSigma: 0.1, PriorError: 800}})
-	sub := r.s.Subscribe(1 << 16)
-	r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	if _, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
+	sub := r.Service.Subscribe(1 << 16)
+	r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	if _, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80}); res.Outcome != tune.Tuned {
 		t.Fatalf("tune: %s (%v)", res.Outcome, res.Err)
 	}
 	var snaps []controller.Snapshot
 	readings, changes := 0, 0
 	var from, to time.Time
-	for _, e := range drain(sub) {
+	for _, e := range fakeservice.Drain(sub) {
 		switch {
 		case e.Kind == controller.EventTune && e.Tune.State == tune.Scanning && e.Tune.Kind == tune.KindReading:
 			readings++
@@ -166,12 +167,12 @@ func TestSnapshotFreshDuringScan(t *testing.T) {
 	}
 
 	// A pre-position from 80 m to 160 m takes a few seconds of moving, with no readings.
-	drain(sub)
-	if _, res := r.run(t, controller.Request{Kind: controller.Preposition, Freq: f160}); res.Outcome != tune.Positioned {
+	fakeservice.Drain(sub)
+	if _, res := r.Do(t, controller.Request{Kind: controller.Preposition, Freq: f160}); res.Outcome != tune.Positioned {
 		t.Fatalf("pre-position: %s (%v)", res.Outcome, res.Err)
 	}
 	moving := map[int64]bool{}
-	for _, e := range drain(sub) {
+	for _, e := range fakeservice.Drain(sub) {
 		if e.Kind == controller.EventSnapshot && e.Snapshot.State == tune.Positioning {
 			moving[e.Snapshot.Axis.Position] = true
 		}
@@ -188,19 +189,19 @@ func TestSnapshotFreshDuringScan(t *testing.T) {
 func TestEventsSinceResumes(t *testing.T) {
 	const backlog = 50
 	r := newRig(t, rigOptions{svc: controller.Options{Backlog: backlog}})
-	all := r.s.Subscribe(1 << 16)
-	short := r.s.Subscribe(1 << 16)
-	stop := r.start(t)
-	r.loop.Radio.SetFrequency(f80)
-	r.run(t, controller.Request{Kind: controller.Preposition, Freq: f80})
+	all := r.Service.Subscribe(1 << 16)
+	short := r.Service.Subscribe(1 << 16)
+	stop := r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
+	r.Do(t, controller.Request{Kind: controller.Preposition, Freq: f80})
 	// A listener reads a few events and goes away.
 	var seen uint64
 	for range 3 {
 		seen = (<-short.Events()).Seq
 	}
 	short.Close()
-	every := drain(all)
-	evs, complete := r.s.EventsSince(seen)
+	every := fakeservice.Drain(all)
+	evs, complete := r.Service.EventsSince(seen)
 	want := 0
 	for _, e := range every {
 		if e.Seq > seen {
@@ -213,13 +214,13 @@ func TestEventsSinceResumes(t *testing.T) {
 	if !complete || len(evs) != want || evs[0].Seq != seen+1 {
 		t.Fatalf("EventsSince(%d): %d events (complete %v), want the %d after it", seen, len(evs), complete, want)
 	}
-	r.loop.Radio.SetFrequency(f80)
-	r.run(t, controller.Request{Kind: controller.Tune, Freq: f80})
+	r.Loop.Radio.SetFrequency(f80)
+	r.Do(t, controller.Request{Kind: controller.Tune, Freq: f80})
 	stop()
-	every = append(every, drain(all)...)
+	every = append(every, fakeservice.Drain(all)...)
 	last := every[len(every)-1].Seq
 	// Long after: the backlog holds only the newest, and says what it lost.
-	evs, complete = r.s.EventsSince(seen)
+	evs, complete = r.Service.EventsSince(seen)
 	if complete || len(evs) != backlog || evs[len(evs)-1].Seq != last {
 		t.Fatalf("EventsSince(%d) after a tune: %d events up to %d, complete %v; want the last %d, up to %d, incomplete",
 			seen, len(evs), evs[len(evs)-1].Seq, complete, backlog, last)
@@ -230,10 +231,10 @@ func TestEventsSinceResumes(t *testing.T) {
 			t.Fatalf("backlog event %d is %d %s, the stream had %d %s", i, e.Seq, e.Kind, w.Seq, w.Kind)
 		}
 	}
-	if evs, complete := r.s.EventsSince(last - 10); !complete || len(evs) != 10 || evs[0].Seq != last-9 {
+	if evs, complete := r.Service.EventsSince(last - 10); !complete || len(evs) != 10 || evs[0].Seq != last-9 {
 		t.Fatalf("EventsSince(last-10): %d events from %d, complete %v", len(evs), evs[0].Seq, complete)
 	}
-	if evs, complete := r.s.EventsSince(last); !complete || len(evs) != 0 {
+	if evs, complete := r.Service.EventsSince(last); !complete || len(evs) != 0 {
 		t.Fatalf("EventsSince(last): %d events, complete %v; want none, complete", len(evs), complete)
 	}
 }

@@ -79,7 +79,7 @@ type streamer struct {
 // resumes. It is closed when the test ends, before the server.
 func openStream(t *testing.T, ts *httptest.Server, query, lastID string) *streamer {
 	t.Helper()
-	ctx, cancel := context.WithTimeout(context.Background(), safety)
+	ctx, cancel := context.WithTimeout(context.Background(), fakeservice.Safety)
 	req, err := http.NewRequestWithContext(ctx, "GET", ts.URL+"/api/v1/events"+query, nil)
 	if err != nil {
 		t.Fatal(err)

@@ -15,10 +15,6 @@ import (
 	"github.com/tankd/tankd/controller/internal/fakeservice"
 )
 
-// safety bounds every wait for another goroutine: only a safety net, since on the virtual clock
-// an operation takes microseconds of real time.
-const safety = fakeservice.Safety
-
 // Frequencies the tests use: on 80, 160 and 40 m, where the fake loop tunes.
 var (
 	f80  = 3750 * physic.KiloHertz

@@ -9,7 +9,6 @@ import (
 	"runtime"
 	"strconv"
 	"strings"
-	"sync"
 	"testing"
 	"time"
 
@@ -17,20 +16,10 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
-	"github.com/tankd/tankd/controller/internal/fakeloop"
-	"github.com/tankd/tankd/controller/memmap"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/metrics"
-	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/tune"
 )
-
-// nominal is the gear play the controller assumes before a calibration: the fake loop's 40
-// steps and half again, plus 4 (the rule the station descriptions use; from memory).
-const nominal = 64
-
-// safety bounds every wait for another goroutine. It is only a safety net for a broken
-// service: on the virtual clock an operation takes microseconds of real time.
-const safety = 30 * time.Second
 
 // Frequencies the tests use: on 80 m and 40 m, where the fake loop tunes.
 var (
@@ -41,99 +30,36 @@ var (
 
 // rig is a service on a fake loop, with its metrics.
 type rig struct {
-	loop *fakeloop.Loop
-	ax   *motion.Axis
-	mm   *memmap.Map
-	svc  *controller.Service
-	m    *metrics.Metrics
+	*fakeservice.Rig
+	m *metrics.Metrics
 }
 
-func newRig(t *testing.T, lo fakeloop.Options, mo metrics.Options) *rig {
+func newRig(t *testing.T, mo metrics.Options) *rig {
 	t.Helper()
-	l, err := fakeloop.New(lo)
-	if err != nil {
-		t.Fatal(err)
-	}
-	ax, err := motion.NewAxis(l.Drive, l.Clock, l.Switches(), l.AxisOptions(nominal))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := ax.Enable(context.Background()); err != nil {
-		t.Fatal(err)
-	}
-	ax.Reference(l.Drive.Motor())
-	mm, err := memmap.New(memmap.Options{Prior: l.Prior})
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, err := controller.NewService(tune.Deps{Axis: ax, Sensor: l.Sensor, Clock: l.Clock, Map: mm,
-		Transmitter: l.Radio, Thermometer: l.Thermometer},
-		tune.Options{Transmit: true, NominalBacklash: nominal}, controller.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := metrics.New(svc, mo)
+	r := &rig{Rig: fakeservice.New(t, fakeservice.Options{})}
+	m, err := metrics.New(r.Service, mo)
 	if err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(m.Close)
-	return &rig{loop: l, ax: ax, mm: mm, svc: svc, m: m}
-}
-
-// runUntilStopped runs run on a goroutine until the returned stop is called (or the test ends);
-// stop waits for it and checks that it returned nil.
-func runUntilStopped(t *testing.T, what string, run func(context.Context) error) (stop func()) {
-	t.Helper()
-	ctx, cancel := context.WithCancel(context.Background())
-	errc := make(chan error, 1)
-	go func() { errc <- run(ctx) }()
-	var once sync.Once
-	stop = func() {
-		once.Do(func() {
-			cancel()
-			select {
-			case err := <-errc:
-				if err != nil {
-					t.Errorf("%s: %v", what, err)
-				}
-			case <-time.After(safety):
-				t.Errorf("%s did not return", what)
-			}
-		})
-	}
-	t.Cleanup(stop)
-	return stop
-}
-
-func (r *rig) startService(t *testing.T) (stop func()) {
-	t.Helper()
-	return runUntilStopped(t, "service", r.svc.Run)
+	r.m = m
+	return r
 }
 
 // startMetrics runs the metrics' Run; after stop, every event published before it is counted.
 func (r *rig) startMetrics(t *testing.T) (stop func()) {
 	t.Helper()
-	return runUntilStopped(t, "metrics", r.m.Run)
+	return fakeservice.Go(t, "metrics", r.m.Run)
 }
 
 // run submits q, waits for it, and checks its outcome.
 func (r *rig) run(t *testing.T, q controller.Request, want tune.Outcome) tune.Result {
 	t.Helper()
-	q.Source = controller.SourceAPI
-	id, err := r.svc.Submit(q)
-	if err != nil {
-		t.Fatalf("submit %+v: %v", q, err)
+	_, res := r.Do(t, q)
+	if res.Outcome != want {
+		t.Fatalf("%s at %v: %+v, want %s", q.Kind, q.Freq, res, want)
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), safety)
-	defer cancel()
-	st, err := r.svc.Wait(ctx, id)
-	if err != nil {
-		t.Fatalf("wait for %s: %v", q.Kind, err)
-	}
-	if st.Result == nil || st.Result.Outcome != want {
-		t.Fatalf("%s at %v: %+v, want %s", q.Kind, q.Freq, st.Result, want)
-	}
-	return *st.Result
+	return res
 }
 
 // compare checks that the registry holds exactly want for the metrics named.
@@ -236,12 +162,12 @@ var snapshotNames = []string{"tankd_swr", "tankd_forward_power_watts", "tankd_re
 // Figures the tuner's own arithmetic decides (positions, SWRs, durations, Q) are taken from
 // what the service and the axis report; everything else is literal.
 func TestScriptedOperations(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{})
+	r := newRig(t, metrics.Options{})
 	// Another listener, to add up the moves as the metric's definition does.
-	moves := r.svc.Subscribe(1 << 16)
+	moves := r.Service.Subscribe(1 << 16)
 	defer moves.Close()
 	armed := false
-	r.loop.Sensor.OnRead(func() {
+	r.Loop.Sensor.OnRead(func() {
 		if armed {
 			armed = false
 			panic("injected: a driver bug")
@@ -254,24 +180,24 @@ func TestScriptedOperations(t *testing.T) {
 		family("tankd_memory_map_points", v(0))+family("tankd_fault_latched", v(0))+
 		family("tankd_radio_stale", v(0)), snapshotNames...)
 
-	r.startService(t)
+	r.Start(t)
 	stopMetrics := r.startMetrics(t)
 
-	r.loop.Radio.SetFrequency(f80)
+	r.Loop.Radio.SetFrequency(f80)
 	tuned := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}, tune.Tuned)
-	if tuned.Pos != r.ax.Position() {
-		t.Fatalf("the tune ended at %d, the axis stands at %d", tuned.Pos, r.ax.Position())
+	if tuned.Pos != r.Axis.Position() {
+		t.Fatalf("the tune ended at %d, the axis stands at %d", tuned.Pos, r.Axis.Position())
 	}
 	r.compare(t, "after the tune", family("tankd_swr", v(tuned.SWR))+
-		family("tankd_motor_position_steps", v(float64(r.ax.Position())))+family("tankd_position_trusted", v(1))+
+		family("tankd_motor_position_steps", v(float64(r.Axis.Position())))+family("tankd_position_trusted", v(1))+
 		family("tankd_frequency_hertz", v(3.75e6))+family("tankd_busy", v(0))+oneHot(tune.Idle)+
 		family("tankd_memory_map_points", v(1))+family("tankd_fault_latched", v(0))+
 		family("tankd_radio_stale", v(0)), snapshotNames...)
 
-	r.loop.Radio.SetFrequency(f40)
+	r.Loop.Radio.SetFrequency(f40)
 	cal := r.run(t, controller.Request{Kind: controller.Calibrate, Freq: f40}, tune.Calibrated)
 	r.compare(t, "after the calibration", family("tankd_swr", v(cal.SWR))+
-		family("tankd_motor_position_steps", v(float64(r.ax.Position())))+family("tankd_position_trusted", v(1))+
+		family("tankd_motor_position_steps", v(float64(r.Axis.Position())))+family("tankd_position_trusted", v(1))+
 		family("tankd_frequency_hertz", v(7.1e6))+family("tankd_busy", v(0))+oneHot(tune.Idle)+
 		family("tankd_memory_map_points", v(2))+family("tankd_fault_latched", v(0))+
 		family("tankd_radio_stale", v(0)), snapshotNames...)
@@ -279,21 +205,21 @@ func TestScriptedOperations(t *testing.T) {
 	// The failure: the motor moves to the new frequency's prediction, and the first reading
 	// panics. No SWR is shown any more: the last verified one was taken elsewhere.
 	armed = true
-	r.loop.Radio.SetFrequency(f80b)
+	r.Loop.Radio.SetFrequency(f80b)
 	failed := r.run(t, controller.Request{Kind: controller.Tune, Freq: f80b}, tune.Fault)
 	r.compare(t, "after the fault",
-		family("tankd_motor_position_steps", v(float64(r.ax.Position())))+
-			family("tankd_position_trusted", v(flag(r.ax.Trusted())))+
+		family("tankd_motor_position_steps", v(float64(r.Axis.Position())))+
+			family("tankd_position_trusted", v(flag(r.Axis.Trusted())))+
 			family("tankd_frequency_hertz", v(3.7e6))+family("tankd_busy", v(0))+oneHot(tune.Faulted)+
-			family("tankd_memory_map_points", v(float64(r.mm.Len())))+family("tankd_fault_latched", v(1))+
+			family("tankd_memory_map_points", v(float64(r.Map.Len())))+family("tankd_fault_latched", v(1))+
 			family("tankd_radio_stale", v(0)), snapshotNames...)
-	if r.mm.Len() != 2 {
-		t.Fatalf("the failed tune left %d points in the map, want the 2 learned before", r.mm.Len())
+	if r.Map.Len() != 2 {
+		t.Fatalf("the failed tune left %d points in the map, want the 2 learned before", r.Map.Len())
 	}
 
 	stopMetrics() // counts every event published so far
 	steps := 0.0
-	for _, e := range drainEvents(moves) {
+	for _, e := range fakeservice.Drain(moves) {
 		if e.Kind == controller.EventTune && e.Tune.Kind == tune.KindMove {
 			steps += math.Abs(float64(e.Tune.Target) - e.Tune.Pos)
 		}
@@ -343,29 +269,13 @@ func nonzero(xs ...float64) []float64 {
 	return out
 }
 
-// drainEvents reads every event waiting in sub.
-func drainEvents(sub *controller.Subscription) []controller.Event {
-	var out []controller.Event
-	for {
-		select {
-		case e, ok := <-sub.Events():
-			if !ok {
-				return out
-			}
-			out = append(out, e)
-		default:
-			return out
-		}
-	}
-}
-
 // Every metric, the Go runtime's and the process's included, passes the Prometheus linter
 // once each labelled family has a series.
 func TestMetricsPassLint(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{Version: "v0.0.0-test"})
-	r.startService(t)
+	r := newRig(t, metrics.Options{Version: "v0.0.0-test"})
+	r.Start(t)
 	stop := r.startMetrics(t)
-	r.loop.Radio.SetFrequency(f80)
+	r.Loop.Radio.SetFrequency(f80)
 	r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}, tune.Tuned)
 	r.m.LinkError()
 	stop()
@@ -386,30 +296,27 @@ func TestMetricsPassLint(t *testing.T) {
 // goroutine inside a coupler reading: the collector reads the published snapshot, never the
 // tuner. It shows the operation as it stands.
 func TestScrapeDuringAnOperation(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{})
+	r := newRig(t, metrics.Options{})
 	paused, resume := make(chan struct{}), make(chan struct{})
 	once := false
-	r.loop.Sensor.OnRead(func() {
-		if once || r.svc.Snapshot().State != tune.Refining {
+	r.Loop.Sensor.OnRead(func() {
+		if once || r.Service.Snapshot().State != tune.Refining {
 			return
 		}
 		once = true
 		close(paused)
 		select { // hold the tuner here until the test has scraped
 		case <-resume:
-		case <-time.After(safety):
+		case <-time.After(fakeservice.Safety):
 		}
 	})
-	r.startService(t)
+	r.Start(t)
 	r.startMetrics(t)
-	r.loop.Radio.SetFrequency(f80)
-	id, err := r.svc.Submit(controller.Request{Kind: controller.Tune, Freq: f80, Source: controller.SourceAPI})
-	if err != nil {
-		t.Fatal(err)
-	}
+	r.Loop.Radio.SetFrequency(f80)
+	id := r.Submit(t, controller.Request{Kind: controller.Tune, Freq: f80})
 	select {
 	case <-paused:
-	case <-time.After(safety):
+	case <-time.After(fakeservice.Safety):
 		t.Fatal("the tune never reached its fine sweep")
 	}
 
@@ -437,7 +344,7 @@ func TestScrapeDuringAnOperation(t *testing.T) {
 	var s scrape
 	select {
 	case s = <-done:
-	case <-time.After(safety):
+	case <-time.After(fakeservice.Safety):
 		close(resume)
 		t.Fatal("a scrape blocked while the tuner was busy")
 	}
@@ -451,10 +358,8 @@ func TestScrapeDuringAnOperation(t *testing.T) {
 	if s.count != 2 {
 		t.Fatalf("%d of the SWR and reflected power series during the sweep, want both", s.count)
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), safety)
-	defer cancel()
-	if st, err := r.svc.Wait(ctx, id); err != nil || st.Result == nil || st.Result.Outcome != tune.Tuned {
-		t.Fatalf("the tune after the scrape: %+v, %v", st.Result, err)
+	if st := r.Wait(t, id); st.Result == nil || st.Result.Outcome != tune.Tuned {
+		t.Fatalf("the tune after the scrape: %+v", st.Result)
 	}
 	// At rest the coupler is not read: the powers go, the verified SWR stays.
 	if n, err := testutil.GatherAndCount(r.m.Registry(), "tankd_swr", "tankd_forward_power_watts", "tankd_reflected_power_watts"); err != nil || n != 1 {
@@ -465,7 +370,7 @@ func TestScrapeDuringAnOperation(t *testing.T) {
 // The handler serves the text exposition format to a plain GET, with the build and the link
 // errors counted through LinkError.
 func TestHandlerServesText(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{Version: "1.2.3"})
+	r := newRig(t, metrics.Options{Version: "1.2.3"})
 	srv := httptest.NewServer(r.m.Handler())
 	defer srv.Close()
 	r.m.LinkError()
@@ -496,14 +401,14 @@ func TestHandlerServesText(t *testing.T) {
 // the tuner, and are counted: here Run starts only after a whole tune, with room for four.
 func TestDroppedEventsAreCounted(t *testing.T) {
 	const depth = 4
-	r := newRig(t, fakeloop.Options{}, metrics.Options{Depth: depth})
-	all := r.svc.Subscribe(1 << 16)
+	r := newRig(t, metrics.Options{Depth: depth})
+	all := r.Service.Subscribe(1 << 16)
 	defer all.Close()
-	stopService := r.startService(t)
-	r.loop.Radio.SetFrequency(f80)
+	stopService := r.Start(t)
+	r.Loop.Radio.SetFrequency(f80)
 	r.run(t, controller.Request{Kind: controller.Tune, Freq: f80}, tune.Tuned)
 	stopService() // nothing more is published
-	n := len(drainEvents(all))
+	n := len(fakeservice.Drain(all))
 	if all.Dropped() != 0 || n < 100 {
 		t.Fatalf("the full listener saw %d events and dropped %d; a tune makes hundreds", n, all.Dropped())
 	}
@@ -518,34 +423,30 @@ func TestDroppedEventsAreCounted(t *testing.T) {
 
 // The radio's staleness and frequency come from the follower's reports, in the snapshot.
 func TestRadioGauges(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{})
-	fl, err := controller.NewFollower(r.svc, controller.FollowOptions{Manual: true, StaleAfter: 10 * time.Second})
+	r := newRig(t, metrics.Options{})
+	fl, err := controller.NewFollower(r.Service, controller.FollowOptions{Manual: true, StaleAfter: 10 * time.Second})
 	if err != nil {
 		t.Fatal(err)
 	}
-	r.startService(t)
+	r.Start(t)
 	fl.Update(f80, controller.SourceRadio) // a band change: a pre-position at once
-	ctx, cancel := context.WithTimeout(context.Background(), safety)
-	defer cancel()
-	if _, err := r.svc.Wait(ctx, fl.Status().Submitted); err != nil {
-		t.Fatal(err)
-	}
+	r.Wait(t, fl.Status().Submitted)
 	names := []string{"tankd_radio_frequency_hertz", "tankd_radio_stale"}
 	r.compare(t, "just heard", family("tankd_radio_frequency_hertz", v(3.75e6))+family("tankd_radio_stale", v(0)), names...)
-	r.loop.Clock.Advance(10 * time.Second)
+	r.Loop.Clock.Advance(10 * time.Second)
 	fl.Poll()
 	r.compare(t, "after 10 s of silence", family("tankd_radio_frequency_hertz", v(3.75e6))+family("tankd_radio_stale", v(1)), names...)
 }
 
 func TestNewRefusesBadOptions(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{})
+	r := newRig(t, metrics.Options{})
 	for _, c := range []struct {
 		svc *controller.Service
 		o   metrics.Options
 	}{
 		{nil, metrics.Options{}},
-		{r.svc, metrics.Options{Depth: -1}},
-		{r.svc, metrics.Options{Depth: 2_000_000}},
+		{r.Service, metrics.Options{Depth: -1}},
+		{r.Service, metrics.Options{Depth: 2_000_000}},
 	} {
 		m, err := metrics.New(c.svc, c.o)
 		if err == nil {
@@ -559,7 +460,7 @@ func TestNewRefusesBadOptions(t *testing.T) {
 
 // Close ends Run (or stands for it), and Run runs once.
 func TestCloseEndsRunAndRunRunsOnce(t *testing.T) {
-	r := newRig(t, fakeloop.Options{}, metrics.Options{})
+	r := newRig(t, metrics.Options{})
 	errc := make(chan error, 1)
 	go func() { errc <- r.m.Run(context.Background()) }()
 	r.m.Close()
@@ -568,7 +469,7 @@ func TestCloseEndsRunAndRunRunsOnce(t *testing.T) {
 		if err != nil {
 			t.Fatalf("Run after Close: %v", err)
 		}
-	case <-time.After(safety):
+	case <-time.After(fakeservice.Safety):
 		t.Fatal("Run did not return after Close")
 	}
 	if err := r.m.Run(context.Background()); err == nil {

@@ -12,21 +12,12 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller"
-	"github.com/tankd/tankd/controller/internal/fakeloop"
-	"github.com/tankd/tankd/controller/memmap"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/record"
 	"github.com/tankd/tankd/controller/sweeps"
 	"github.com/tankd/tankd/controller/tune"
 )
-
-// nominal is the gear play the controller assumes before a calibration: the fake loop's 40 steps
-// and half again, plus 4 (the rule the station descriptions use; from memory).
-const nominal = 64
-
-// safety bounds every wait for another goroutine. It is only a safety net: on the virtual clock
-// an operation takes microseconds of real time.
-const safety = 30 * time.Second
 
 // Frequencies on 80 m, where the fake loop tunes.
 var (
@@ -43,8 +34,7 @@ type motorAt struct {
 
 // rig is a service on a fake loop, recorded by a store.
 type rig struct {
-	loop    *fakeloop.Loop
-	svc     *controller.Service
+	*fakeservice.Rig
 	store   *sweeps.Store
 	dir     string
 	sub     *controller.Subscription // the store's
@@ -54,10 +44,9 @@ type rig struct {
 	mu    sync.Mutex
 	track []motorAt // every change of the motor's position, as seen at each sleep
 
-	stopOnce sync.Once
-	cancel   context.CancelFunc
-	svcDone  chan error
-	runDone  chan error
+	stopOnce     sync.Once
+	stopService  func()
+	stopStoreRun func()
 }
 
 type rigOptions struct {
@@ -69,30 +58,9 @@ type rigOptions struct {
 	onSleep func()                 // on the service's goroutine, at every sleep of the fake loop's clock
 }
 
+// newRig builds the rig and starts the service and the store's Run.
 func newRig(t *testing.T, o rigOptions) *rig {
 	t.Helper()
-	l, err := fakeloop.New(fakeloop.Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ax, err := motion.NewAxis(l.Drive, l.Clock, l.Switches(), l.AxisOptions(nominal))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := ax.Enable(context.Background()); err != nil {
-		t.Fatal(err)
-	}
-	ax.Reference(l.Drive.Motor())
-	m, err := memmap.New(memmap.Options{Prior: l.Prior})
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, err := controller.NewService(tune.Deps{Axis: ax, Sensor: l.Sensor, Clock: l.Clock, Map: m,
-		Transmitter: l.Radio, Thermometer: l.Thermometer},
-		tune.Options{Transmit: true, NominalBacklash: nominal}, o.svc)
-	if err != nil {
-		t.Fatal(err)
-	}
 	if o.dir == "" {
 		o.dir = filepath.Join(t.TempDir(), "sweeps")
 	}
@@ -103,28 +71,30 @@ func newRig(t *testing.T, o rigOptions) *rig {
 	if o.depth == 0 {
 		o.depth = sweeps.SubscriptionDepth
 	}
-	r := &rig{loop: l, svc: svc, store: st, dir: o.dir, written: make(chan sweeps.Info, 64),
-		svcDone: make(chan error, 1), runDone: make(chan error, 1)}
-	l.Clock.OnSleep(func() {
-		r.note(l)
+	r := &rig{Rig: fakeservice.New(t, fakeservice.Options{Service: o.svc}), store: st, dir: o.dir,
+		written: make(chan sweeps.Info, 64)}
+	r.Loop.Clock.OnSleep(func() {
+		r.note()
 		if o.onSleep != nil {
 			o.onSleep()
 		}
 	})
 	sweeps.SetHooks(st, o.onEvent, func(i sweeps.Info) { r.written <- i })
-	r.capture = svc.Subscribe(1 << 20)
-	r.sub = svc.Subscribe(o.depth)
-	ctx, cancel := context.WithCancel(context.Background())
-	r.cancel = cancel
-	go func() { r.svcDone <- svc.Run(ctx) }()
-	go func() { r.runDone <- st.Run(context.Background(), r.sub) }()
-	t.Cleanup(func() { r.stop(t) })
+	r.capture = r.Service.Subscribe(1 << 20)
+	r.sub = r.Service.Subscribe(o.depth)
+	r.stopService = r.Start(t)
+	// The store's Run is ended by closing its subscription (see stop), not by its context, so
+	// that it records what the service published last, as in the daemon.
+	r.stopStoreRun = fakeservice.Go(t, "store Run", func(context.Context) error {
+		return st.Run(context.Background(), r.sub)
+	})
+	t.Cleanup(r.stop)
 	return r
 }
 
 // note keeps the motor's position if it changed; on the service's goroutine.
-func (r *rig) note(l *fakeloop.Loop) {
-	m, now := l.Drive.Motor(), l.Clock.Now()
+func (r *rig) note() {
+	m, now := r.Loop.Drive.Motor(), r.Loop.Clock.Now()
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	if n := len(r.track); n == 0 || r.track[n-1].motor != m {
@@ -151,28 +121,12 @@ func (r *rig) travel(t time.Time) motion.Direction {
 
 // stop ends the service, then the store's Run (which drains the subscription first), the way
 // the daemon does on the way out.
-func (r *rig) stop(t *testing.T) {
-	t.Helper()
+func (r *rig) stop() {
 	r.stopOnce.Do(func() {
-		r.cancel()
-		select {
-		case err := <-r.svcDone:
-			if err != nil {
-				t.Errorf("service Run: %v", err)
-			}
-		case <-time.After(safety):
-			t.Fatal("the service's Run did not return")
-		}
+		r.stopService()
 		r.sub.Close()
 		r.capture.Close()
-		select {
-		case err := <-r.runDone:
-			if err != nil {
-				t.Errorf("store Run: %v", err)
-			}
-		case <-time.After(safety):
-			t.Fatal("the store's Run did not return")
-		}
+		r.stopStoreRun()
 	})
 }
 
@@ -185,33 +139,11 @@ func (r *rig) events() []controller.Event {
 	return out
 }
 
-// run submits q and waits for its result.
-func (r *rig) run(t *testing.T, q controller.Request) (controller.RequestStatus, tune.Result) {
-	t.Helper()
-	if q.Source == "" {
-		q.Source = controller.SourceAPI
-	}
-	id, err := r.svc.Submit(q)
-	if err != nil {
-		t.Fatalf("submit %+v: %v", q, err)
-	}
-	ctx, cancel := context.WithTimeout(context.Background(), safety)
-	defer cancel()
-	st, err := r.svc.Wait(ctx, id)
-	if err != nil {
-		t.Fatalf("wait for request %d: %v", id, err)
-	}
-	if st.Result == nil {
-		t.Fatalf("%s request %d ended %s without a result", q.Kind, id, st.State)
-	}
-	return st, *st.Result
-}
-
 // tune tunes at f with the radio there; it must succeed.
 func (r *rig) tune(t *testing.T, f physic.Frequency) controller.RequestStatus {
 	t.Helper()
-	r.loop.Radio.SetFrequency(f)
-	st, res := r.run(t, controller.Request{Kind: controller.Tune, Freq: f})
+	r.Loop.Radio.SetFrequency(f)
+	st, res := r.Do(t, controller.Request{Kind: controller.Tune, Freq: f})
 	if res.Outcome != tune.Tuned {
 		t.Fatalf("tune at %v: %s (%v)", f, res.Outcome, res.Err)
 	}
@@ -224,7 +156,7 @@ func (r *rig) nextWrite(t *testing.T) sweeps.Info {
 	select {
 	case i := <-r.written:
 		return i
-	case <-time.After(safety):
+	case <-time.After(fakeservice.Safety):
 		t.Fatal("no recording written")
 		return sweeps.Info{}
 	}

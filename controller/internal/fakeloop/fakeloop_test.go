@@ -8,38 +8,25 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/internal/fakeloop"
+	"github.com/tankd/tankd/controller/internal/fakeservice"
 	"github.com/tankd/tankd/controller/memmap"
 	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/tune"
 )
 
-// nominal is the play the controller assumes before a calibration: the fake's default 40 steps
-// and half again, plus 4 (the same rule the station descriptions use; from memory).
-const nominal = 64
-
+// newTuner is a bare tuner on a fake loop, its axis untrusted if the loop has a home switch.
 func newTuner(t *testing.T, o fakeloop.Options, to tune.Options) (*fakeloop.Loop, *motion.Axis, *tune.Tuner) {
 	t.Helper()
 	l, err := fakeloop.New(o)
 	if err != nil {
 		t.Fatal(err)
 	}
-	ax, err := motion.NewAxis(l.Drive, l.Clock, l.Switches(), l.AxisOptions(nominal))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := ax.Enable(context.Background()); err != nil {
-		t.Fatal(err)
-	}
-	if l.Home == nil {
-		ax.Reference(l.Drive.Motor())
-	}
+	ax := fakeservice.NewAxis(t, l, l.Home != nil)
 	m, err := memmap.New(memmap.Options{Prior: l.Prior})
 	if err != nil {
 		t.Fatal(err)
 	}
-	to.Transmit, to.NominalBacklash, to.HasHome = true, nominal, l.Home != nil
-	tn, err := tune.New(tune.Deps{Axis: ax, Sensor: l.Sensor, Clock: l.Clock, Map: m, Transmitter: l.Radio,
-		Thermometer: l.Thermometer}, to)
+	tn, err := tune.New(fakeservice.TunerDeps(l, ax, m), fakeservice.TuneOptions(l, to))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -59,7 +46,7 @@ func TestTunerTunesTheFakeLoop(t *testing.T) {
 		// Within a quarter of the dip's half-width and two steps: the final approach still
 		// carries up to half the difference between the nominal and the true play (from memory
 		// of the simulator's figures).
-		if d := math.Abs(float64(ax.Position()) - l.Dip(f)); d > 0.25*l.HalfWidth(f)+2+float64(nominal-40)/2 {
+		if d := math.Abs(float64(ax.Position()) - l.Dip(f)); d > 0.25*l.HalfWidth(f)+2+float64(fakeservice.Nominal-40)/2 {
 			t.Errorf("tune at %v ended at %d, the dip is at %.1f (half-width %.1f)", f, ax.Position(), l.Dip(f), l.HalfWidth(f))
 		}
 		if res.SWR > 2 || l.Radio.Transmitting() {
