@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"encoding/json"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -100,5 +101,110 @@ func TestRecordThenReplay(t *testing.T) {
 	var o, e bytes.Buffer
 	if code := run([]string{"replay"}, &o, &e); code != 2 {
 		t.Errorf("replay with no file: exit %d, want 2", code)
+	}
+}
+
+// TestBenchReportsPhasesCoverageAndStations: the JSON report carries the phases, the map's σ
+// coverage, the figures by station and the drawn values besides the first keys, and the mean
+// phases add up to the mean tune.
+func TestBenchReportsPhasesCoverageAndStations(t *testing.T) {
+	out, _ := runOK(t, "bench", "-n", "6", "-map", "warm", "-json", "-q")
+	var rep struct {
+		Ranges     string                        `json:"ranges"`
+		Strategies map[string]map[string]float64 `json:"strategies"`
+		Coverage   struct {
+			All      map[string]float64            `json:"all"`
+			BySource map[string]map[string]float64 `json:"by_source"`
+			ByExtent map[string]map[string]float64 `json:"by_extent"`
+		} `json:"coverage"`
+		ByStation map[string]map[string]any `json:"by_station"`
+		Drawn     []map[string]string       `json:"drawn"`
+	}
+	if err := json.Unmarshal([]byte(out), &rep); err != nil {
+		t.Fatalf("not JSON: %v\n%s", err, out)
+	}
+	if rep.Ranges != "standard" || len(rep.ByStation) == 0 || len(rep.Drawn) == 0 {
+		t.Errorf("ranges %q, %d stations, %d drawn values", rep.Ranges, len(rep.ByStation), len(rep.Drawn))
+	}
+	if n := rep.Coverage.All["n"]; n != 6 {
+		t.Errorf("coverage over %v tunes, want all 6 warm tunes (each starts from a prediction)", n)
+	}
+	for name, s := range rep.Strategies {
+		sum := 0.0
+		for _, p := range []string{"travel", "settle", "readings", "approach", "verify", "other"} {
+			v, ok := s["mean_"+p+"_s"]
+			if _, med := s["median_"+p+"_s"]; !ok || !med {
+				t.Errorf("%s: no mean or median %s", name, p)
+			}
+			sum += v
+		}
+		if math.Abs(sum-s["mean_tune_s"]) > 1e-6 {
+			t.Errorf("%s: the mean phases add up to %.6f s, the mean tune is %.6f s", name, sum, s["mean_tune_s"])
+		}
+	}
+	table, _ := runOK(t, "bench", "-n", "6", "-q")
+	for _, want := range []string{"where the time goes", "travel", "the map's σ", "within 2σ", "tankd by station"} {
+		if !strings.Contains(table, want) {
+			t.Errorf("the table lacks %q:\n%s", want, table)
+		}
+	}
+}
+
+// TestBenchStationFileDrawsOnlyWhatItLeavesOut: a station file that sets every simulator value
+// the benchmark would draw is benched as it says, and the output says that nothing was drawn;
+// one that leaves values out lists them with their ranges.
+func TestBenchStationFileDrawsOnlyWhatItLeavesOut(t *testing.T) {
+	dir := t.TempDir()
+	full := filepath.Join(dir, "full.toml")
+	if err := os.WriteFile(full, []byte(`
+[drive]
+backlash_steps = 25
+[simulator.drive]
+miss_rate = 0
+[simulator.coupler]
+directivity_db = 28
+leak_phase_deg = 45
+adc_noise_mv = 0.8
+[simulator.weather]
+swing_k = 4
+wander_k = 0.5
+peak_hour = 14
+`), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out, _ := runOK(t, "bench", "-n", "3", "-scenarios", full, "-perturb=false", "-q", "-bands", "160m,80m")
+	if !strings.Contains(out, "full: nothing drawn") {
+		t.Errorf("a full station file: the output does not say nothing was drawn:\n%s", out)
+	}
+	js, _ := runOK(t, "bench", "-n", "3", "-scenarios", full, "-perturb=false", "-q", "-bands", "160m,80m", "-json")
+	var rep struct {
+		Drawn []map[string]string `json:"drawn"`
+	}
+	if err := json.Unmarshal([]byte(js), &rep); err != nil || rep.Drawn == nil || len(rep.Drawn) != 0 {
+		t.Errorf("a full station file: drawn %v (%v), want an empty list", rep.Drawn, err)
+	}
+	part := filepath.Join(dir, "part.toml")
+	if err := os.WriteFile(part, []byte("[drive]\nbacklash_steps = 25\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out, _ = runOK(t, "bench", "-n", "3", "-scenarios", part, "-perturb=false", "-q", "-bands", "160m,80m")
+	if !strings.Contains(out, "simulator.coupler.directivity_db: 22–35 dB") || strings.Contains(out, "drive.backlash_steps:") {
+		t.Errorf("a partial station file: the drawn values are not what it leaves out:\n%s", out)
+	}
+}
+
+// TestBenchHarshRanges: the harsh ranges run, their own stations can be picked, and an unknown
+// set of ranges is a usage error.
+func TestBenchHarshRanges(t *testing.T) {
+	out, _ := runOK(t, "bench", "-n", "4", "-ranges", "harsh", "-stations", "small-loop,vacuum-nohome", "-q")
+	if !strings.Contains(out, "harsh ranges") || !strings.Contains(out, "small-loop") {
+		t.Errorf("harsh ranges:\n%s", out)
+	}
+	var o, e bytes.Buffer
+	if code := run([]string{"bench", "-ranges", "gentle"}, &o, &e); code != 2 {
+		t.Errorf("-ranges gentle: exit %d, want 2", code)
+	}
+	if code := run([]string{"bench", "-stations", "small-loop"}, &o, &e); code != 2 {
+		t.Errorf("a harsh station with the standard ranges: exit %d, want 2", code)
 	}
 }

@@ -608,7 +608,9 @@ func (a *Axis) poll() error {
 	}
 	emitted, running := a.d.Progress()
 	a.account(emitted)
-	a.countedAt = a.clk.Now()
+	// One reading of the clock serves the poll: the count's instant and the deadline's check.
+	now := a.clk.Now()
+	a.countedAt = now
 	if emitted > a.planned {
 		return a.trip(fmt.Errorf("%w: %s emitted %d pulses of a %d-pulse move", ErrDrive, a.d, emitted, a.planned))
 	}
@@ -628,7 +630,7 @@ func (a *Axis) poll() error {
 	}
 	// A drive may finish a little late, but one still running past the deadline hangs: without
 	// this check every wait on the motor would last as long as the hang.
-	if now := a.clk.Now(); now.After(a.deadline) {
+	if now.After(a.deadline) {
 		return a.trip(a.overdue(now, emitted))
 	}
 	return nil

@@ -24,7 +24,9 @@ const firstStepCorrection = 0.676
 // room (trapezoid) or turn round at the peak (triangle), decelerate, emitting Steps pulses.
 //
 // A Profile is a value: StopAt returns a changed copy. All its time queries are O(1), so that a
-// simulator can ask for the position at every ADC sample.
+// simulator can ask for the position at every ADC sample; a profile made by Plan or StopAt
+// computes its trajectory once, so that the queries the axis and a drive make at every poll
+// cost a few comparisons.
 type Profile struct {
 	Steps    int64   // pulses to emit, >= 0
 	MaxSpeed float64 // steps per second, > 0
@@ -33,11 +35,60 @@ type Profile struct {
 	// stop, when stopped, is the time from which the move ramps down early (see StopAt).
 	stop    time.Duration
 	stopped bool
+
+	// traj is the trajectory of the fields above, shared by the copies of a profile and never
+	// changed; nil in a Profile literal, whose queries compute it afresh. It is used only while
+	// the fields still match what it was computed from.
+	traj *trajectory
+}
+
+// trajectory is a profile's shape and duration, computed once.
+type trajectory struct {
+	key      profileKey
+	s        shape
+	duration time.Duration // Duration
+}
+
+// profileKey is what a trajectory is computed from.
+type profileKey struct {
+	steps           int64
+	maxSpeed, accel float64
+	stop            time.Duration
+	stopped         bool
+}
+
+func (p *Profile) key() profileKey {
+	return profileKey{steps: p.Steps, maxSpeed: p.MaxSpeed, accel: p.Accel, stop: p.stop, stopped: p.stopped}
+}
+
+// trajectory returns p's trajectory: the one computed with it if the fields still match, or
+// one computed into scratch.
+func (p *Profile) trajectory(scratch *trajectory) *trajectory {
+	if t := p.traj; t != nil && t.key == p.key() {
+		return t
+	}
+	scratch.compute(p)
+	return scratch
+}
+
+func (t *trajectory) compute(p *Profile) {
+	t.key = p.key()
+	t.s = p.shape()
+	// Rounded up, so that at Duration the ideal trajectory has certainly arrived.
+	t.duration = time.Duration(math.Ceil(t.s.t3 * float64(time.Second)))
+}
+
+// withTrajectory returns p with its trajectory computed.
+func (p Profile) withTrajectory() Profile {
+	t := new(trajectory)
+	t.compute(&p)
+	p.traj = t
+	return p
 }
 
 // Plan returns the profile of a move of steps pulses, or an error wrapping ErrBadProfile.
 func Plan(steps int64, maxSpeed, accel float64) (Profile, error) {
-	p := Profile{Steps: steps, MaxSpeed: maxSpeed, Accel: accel}
+	p := Profile{Steps: steps, MaxSpeed: maxSpeed, Accel: accel}.withTrajectory()
 	if err := p.Validate(); err != nil {
 		return Profile{}, err
 	}
@@ -58,7 +109,8 @@ func (p Profile) Validate() error {
 		errs = append(errs, fmt.Errorf("acceleration %v steps/s² not a positive finite number", p.Accel))
 	}
 	if len(errs) == 0 {
-		if t := p.shape().t3; t > maxPlanSeconds {
+		var scratch trajectory
+		if t := p.trajectory(&scratch).s.t3; t > maxPlanSeconds {
 			errs = append(errs, fmt.Errorf("move of %d steps would take %.0f s, over %.0f s", p.Steps, t, float64(maxPlanSeconds)))
 		}
 	}
@@ -165,9 +217,8 @@ func seconds(t time.Duration) float64 { return float64(t) / float64(time.Second)
 // move shortened by StopAt rests a little after its last pulse, since its ramp need not end on a
 // whole step.
 func (p Profile) Duration() time.Duration {
-	s := p.shape()
-	// Rounded up, so that at Duration the ideal trajectory has certainly arrived.
-	return time.Duration(math.Ceil(s.t3 * float64(time.Second)))
+	var scratch trajectory
+	return p.trajectory(&scratch).duration
 }
 
 // StepsAt returns the pulses emitted t after the start: the ideal constant-acceleration
@@ -176,37 +227,46 @@ func (p Profile) StepsAt(t time.Duration) int64 {
 	if t <= 0 {
 		return 0
 	}
-	s := p.shape()
-	if t >= time.Duration(math.Ceil(s.t3*float64(time.Second))) {
-		return s.total
+	var scratch trajectory
+	tr := p.trajectory(&scratch)
+	if t >= tr.duration {
+		return tr.s.total
 	}
-	return min(int64(math.Floor(s.position(seconds(t)))), s.total)
+	return min(int64(math.Floor(tr.s.position(seconds(t)))), tr.s.total)
 }
 
 // positionAt is the unfloored trajectory t after the start, ending on the last pulse.
 func (p Profile) positionAt(t time.Duration) float64 {
-	s := p.shape()
+	var scratch trajectory
+	s := &p.trajectory(&scratch).s
 	return min(s.position(seconds(t)), float64(s.total))
 }
 
 // SpeedAt returns the planned speed t after the start, in steps per second.
 func (p Profile) SpeedAt(t time.Duration) float64 {
-	s := p.shape()
-	return s.speed(seconds(t))
+	var scratch trajectory
+	return p.trajectory(&scratch).s.speed(seconds(t))
 }
 
 // PeakSpeed returns the highest speed the move reaches, in steps per second.
-func (p Profile) PeakSpeed() float64 { return p.shape().v1 }
+func (p Profile) PeakSpeed() float64 {
+	var scratch trajectory
+	return p.trajectory(&scratch).s.v1
+}
 
 // Total returns the pulses the move emits: Steps, or fewer after StopAt.
-func (p Profile) Total() int64 { return p.shape().total }
+func (p Profile) Total() int64 {
+	var scratch trajectory
+	return p.trajectory(&scratch).s.total
+}
 
 // Segments returns where, in pulses from the start along the ideal trajectory, the move stops
 // accelerating, starts decelerating, and comes to rest. Speed rises before accelEnd, is constant
 // up to decelStart and falls after it; the speed at position x in the closing ramp is
 // sqrt(2·Accel·(end−x)). A simulator uses this to tell which pulses were demanding.
 func (p Profile) Segments() (accelEnd, decelStart, end float64) {
-	s := p.shape()
+	var scratch trajectory
+	s := &p.trajectory(&scratch).s
 	return s.x1, s.x2, s.x3
 }
 
@@ -218,6 +278,10 @@ func (p Profile) StopAt(t time.Duration) Profile {
 		return p
 	}
 	p.stop, p.stopped = t, true
+	if p.traj != nil {
+		// a planned profile stays planned
+		return p.withTrajectory()
+	}
 	return p
 }
 
@@ -230,7 +294,8 @@ func (p Profile) StopAt(t time.Duration) Profile {
 // the delays falls short of Duration by about 0.65·sqrt(2/Accel).
 func (p Profile) Delays() iter.Seq[time.Duration] {
 	return func(yield func(time.Duration) bool) {
-		s := p.shape()
+		var scratch trajectory
+		s := p.trajectory(&scratch).s
 		total := s.total
 		if total <= 0 {
 			return

@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
 )
@@ -305,6 +306,61 @@ func BenchmarkDelays(b *testing.B) {
 	}
 	for b.Loop() {
 		for range p.Delays() {
+		}
+	}
+}
+
+// TestPlannedProfileAnswersAsLiteral: a profile from Plan (and StopAt) keeps its trajectory
+// computed; every query must answer exactly as the same profile written as a literal, which
+// computes it afresh, and a planned profile whose fields are changed must follow the fields.
+func TestPlannedProfileAnswersAsLiteral(t *testing.T) {
+	for _, c := range []struct {
+		steps        int64
+		speed, accel float64
+	}{{20000, 16000, 100000}, {40, 16000, 100000}, {1, 2000, 10000}, {0, 2000, 10000}, {777, 3000, 5000}} {
+		planned, err := Plan(c.steps, c.speed, c.accel)
+		if err != nil {
+			t.Fatal(err)
+		}
+		literal := Profile{Steps: c.steps, MaxSpeed: c.speed, Accel: c.accel}
+		stop := planned.Duration() / 3
+		pairs := [][2]Profile{{planned, literal}, {planned.StopAt(stop), literal.StopAt(stop)},
+			{planned.StopAt(stop).StopAt(stop / 2), literal.StopAt(stop / 2)}}
+		for i, pr := range pairs {
+			p, q := pr[0], pr[1]
+			if p.traj == nil && c.steps > 0 {
+				t.Errorf("%+v pair %d: the planned profile lost its trajectory", c, i)
+			}
+			if p.Duration() != q.Duration() || p.Total() != q.Total() || p.PeakSpeed() != q.PeakSpeed() {
+				t.Errorf("%+v pair %d: duration %v/%v total %d/%d peak %v/%v", c, i, p.Duration(), q.Duration(),
+					p.Total(), q.Total(), p.PeakSpeed(), q.PeakSpeed())
+			}
+			a1, d1, e1 := p.Segments()
+			a2, d2, e2 := q.Segments()
+			if a1 != a2 || d1 != d2 || e1 != e2 {
+				t.Errorf("%+v pair %d: segments differ", c, i)
+			}
+			for at := -time.Millisecond; at <= p.Duration()+time.Millisecond; at += 997 * time.Microsecond {
+				if p.StepsAt(at) != q.StepsAt(at) || p.SpeedAt(at) != q.SpeedAt(at) || p.positionAt(at) != q.positionAt(at) {
+					t.Fatalf("%+v pair %d: at %v: steps %d/%d", c, i, at, p.StepsAt(at), q.StepsAt(at))
+				}
+			}
+			var dp, dq []time.Duration
+			for d := range p.Delays() {
+				dp = append(dp, d)
+			}
+			for d := range q.Delays() {
+				dq = append(dq, d)
+			}
+			if !slices.Equal(dp, dq) {
+				t.Errorf("%+v pair %d: the pulse delays differ", c, i)
+			}
+		}
+		changed := planned
+		changed.Steps = c.steps + 100
+		fresh := Profile{Steps: c.steps + 100, MaxSpeed: c.speed, Accel: c.accel}
+		if changed.Duration() != fresh.Duration() || changed.Total() != fresh.Total() {
+			t.Errorf("%+v: a planned profile whose steps changed answers for the old ones", c)
 		}
 	}
 }

@@ -35,6 +35,9 @@ type Rig struct {
 	Tuner     *tune.Tuner
 	Described station.Description
 	watch     *watch
+	timeline  *timeline
+	sensor    sense.Sensor   // the station's sensor as the controller reads it, timed
+	axisOpts  motion.Options // what the axis was built with, before its defaults
 }
 
 // RigOptions configure a Rig.
@@ -107,11 +110,12 @@ func NewRig(o RigOptions) (*Rig, error) {
 	}
 	hasHome := desc.Drive.Home != nil
 	lo, hi := desc.SoftLimits()
-	w := &watch{Drive: st.Mech, mech: st.Mech, lo: lo, hi: hi,
+	tl := &timeline{now: clk.Now}
+	w := &watch{Drive: st.Mech, mech: st.Mech, lo: lo, hi: hi, timeline: tl,
 		toSteps: desc.ShaftLag(),
 		play:    math.Max(o.Truth.Drive.BacklashSteps, desc.Drive.BacklashSteps) + o.Truth.Simulator.Drive.SettleSteps + 1,
 	}
-	res := controller.Resources{Clock: clk, Drive: w, Switches: st.Mech.Switches(), Sensor: st.Sensor(),
+	res := controller.Resources{Clock: clk, Drive: w, Switches: st.Mech.Switches(), Sensor: timedSensor{st.Sensor(), tl},
 		Transmitter: st.Radio, Thermometer: st.Thermometer(), Frequency: st.Radio}
 	if o.WrapDrive != nil {
 		res.Drive = o.WrapDrive(w)
@@ -142,6 +146,7 @@ func NewRig(o RigOptions) (*Rig, error) {
 		if e.Kind == tune.KindResult && e.Result != nil && e.Result.Shift != 0 {
 			w.sync(ax.Position())
 		}
+		tl.observe(e)
 		if o.Observer != nil {
 			o.Observer.Observe(e)
 		}
@@ -162,7 +167,8 @@ func NewRig(o RigOptions) (*Rig, error) {
 		ax.Reference(st.Mech.MotorPosition())
 		w.sync(ax.Position())
 	}
-	return &Rig{Station: st, Time: clk, Clock: vclk, Axis: ax, Map: a.Map, Tuner: a.Tuner, Described: desc, watch: w}, nil
+	return &Rig{Station: st, Time: clk, Clock: vclk, Axis: ax, Map: a.Map, Tuner: a.Tuner, Described: desc, watch: w,
+		timeline: tl, sensor: res.Sensor, axisOpts: desc.AxisOptions(o.NominalBacklash)}, nil
 }
 
 // Tune sets the radio to f and runs the controller's tune there.
@@ -170,7 +176,25 @@ func (r *Rig) Tune(ctx context.Context, f physic.Frequency, rf bool) (tune.Resul
 	if err := r.Station.Radio.SetFrequency(f); err != nil {
 		return tune.Result{}, fmt.Errorf("radio: %w", err)
 	}
+	r.timeline.begin()
 	return r.Tuner.Tune(ctx, tune.Request{Freq: f, RF: rf}), nil
+}
+
+// Phases is where the time of the latest tune run by Tune went (see Phases); zero before one
+// has ended.
+func (r *Rig) Phases() Phases { return r.timeline.lastPhases }
+
+// timedSensor tells the timeline when each reading begins and ends.
+type timedSensor struct {
+	sense.Sensor
+	tl *timeline
+}
+
+// Read implements sense.Sensor.
+func (s timedSensor) Read(ctx context.Context) (sense.Reading, error) {
+	s.tl.readStarted()
+	defer s.tl.readEnded()
+	return s.Sensor.Read(ctx)
 }
 
 // FailDrive makes the drive refuse its next move, as a driver whose bus has failed.

@@ -2,6 +2,7 @@ package bench
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"runtime"
@@ -15,13 +16,21 @@ import (
 
 // Options configure a benchmark run.
 type Options struct {
-	N        int
-	Seed     uint64
-	Map      MapState
-	Stations map[string]sim.Spec // default sim.Presets()
+	N    int
+	Seed uint64
+	Map  MapState
+	// Ranges names the set of ranges (StandardRanges, HarshRanges) that Stations and Knobs
+	// default to; default StandardRanges.
+	Ranges   string
+	Stations map[string]sim.Spec // default the ranges' stations (RangesNamed)
 	Names    []string            // which of Stations to draw from; default all, sorted
-	Knobs    Knobs               // zero: DefaultKnobs
+	Knobs    Knobs               // zero Bands: the ranges' knobs (Jitter and Fixed kept)
 	Workers  int                 // default GOMAXPROCS
+	// Stepped runs the references (exhaustive, oracle) through the motion loop and the
+	// simulator, each on a rig of its own with the warm history replayed again, as the
+	// benchmark first did: a hundred times the CPU, for checking the references computed from
+	// the truth (see exhaustiveFromTruth).
+	Stepped bool
 	// Progress, if set, is called after each scenario (from the worker goroutines, serialised).
 	Progress func(done, total int)
 }
@@ -47,6 +56,11 @@ type Case struct {
 	LimitViolations           int   `json:"limit_violations"`
 	Stalls                    int64 `json:"stalls"`
 	ControllerLimitViolations int   `json:"controller_limit_violations"`
+	// Phases is where the tune's time went; they add up to TuneS.
+	Phases Phases `json:"phases"`
+	// Prediction is the map's prediction the tune started from and its error against the
+	// truth (tankd only; see Prediction).
+	Prediction *Prediction `json:"prediction,omitempty"`
 }
 
 // Summary is one strategy's figures over all scenarios; the JSON keys are the benchmark's
@@ -69,16 +83,67 @@ type Summary struct {
 	// coordinates (Rig.ControllerLimitViolations): a check of its bookkeeping, blind to lost
 	// steps.
 	ControllerLimitViolations int `json:"controller_limit_violations"`
+	// MeanTuneS and MeanRFS are the means of the tune and RF times. Then each phase's mean
+	// (the six add up to MeanTuneS) and median (which need not add up to anything), as flat
+	// keys: mean_travel_s … mean_other_s, median_travel_s … median_other_s (see Phases).
+	MeanTuneS       float64 `json:"mean_tune_s"`
+	MeanRFS         float64 `json:"mean_rf_s"`
+	MeanTravelS     float64 `json:"mean_travel_s"`
+	MeanSettleS     float64 `json:"mean_settle_s"`
+	MeanReadingsS   float64 `json:"mean_readings_s"`
+	MeanApproachS   float64 `json:"mean_approach_s"`
+	MeanVerifyS     float64 `json:"mean_verify_s"`
+	MeanOtherS      float64 `json:"mean_other_s"`
+	MedianTravelS   float64 `json:"median_travel_s"`
+	MedianSettleS   float64 `json:"median_settle_s"`
+	MedianReadingsS float64 `json:"median_readings_s"`
+	MedianApproachS float64 `json:"median_approach_s"`
+	MedianVerifyS   float64 `json:"median_verify_s"`
+	MedianOtherS    float64 `json:"median_other_s"`
 }
 
-// Report is a whole run.
+// MeanPhases are the phases' means.
+func (s Summary) MeanPhases() Phases {
+	return Phases{Travel: s.MeanTravelS, Settle: s.MeanSettleS, Readings: s.MeanReadingsS,
+		Approach: s.MeanApproachS, Verify: s.MeanVerifyS, Other: s.MeanOtherS}
+}
+
+// MedianPhases are the phases' medians.
+func (s Summary) MedianPhases() Phases {
+	return Phases{Travel: s.MedianTravelS, Settle: s.MedianSettleS, Readings: s.MedianReadingsS,
+		Approach: s.MedianApproachS, Verify: s.MedianVerifyS, Other: s.MedianOtherS}
+}
+
+// StationSummary is tankd's figures on the scenarios drawn from one station (Report.ByStation).
+type StationSummary struct {
+	Scenarios          int     `json:"scenarios"`
+	SuccessRate        float64 `json:"success_rate"`
+	MedianTuneS        float64 `json:"median_tune_s"`
+	MedianRFS          float64 `json:"median_rf_s"`
+	MedianOverheadS    float64 `json:"median_overhead_s"`
+	PrepositionHitRate float64 `json:"preposition_hit_rate"`
+	// Coverage is the map's σ coverage on those scenarios (see Coverage).
+	Coverage Coverage `json:"coverage"`
+}
+
+// Report is a whole run. Its JSON is tanksim bench -json: the keys of the first benchmark
+// (scenarios, map, seed, strategies) and those added since (ranges, drawn, coverage,
+// by_station, and in each strategy the mean and phase figures).
 type Report struct {
 	Scenarios  int                `json:"scenarios"`
 	Map        MapState           `json:"map"`
 	Seed       uint64             `json:"seed"`
+	Ranges     string             `json:"ranges"`
 	Strategies map[string]Summary `json:"strategies"`
-	Cases      []Case             `json:"-"`
-	Wall       time.Duration      `json:"-"`
+	// Coverage is the map's σ coverage over tankd's tunes (see CoverageReport).
+	Coverage CoverageReport `json:"coverage"`
+	// ByStation is tankd's figures station by station.
+	ByStation map[string]StationSummary `json:"by_station"`
+	// Drawn lists the values drawn for each scenario and their ranges (see Drawn): with a
+	// station file, what the file leaves out.
+	Drawn []Draw        `json:"drawn"`
+	Cases []Case        `json:"-"`
+	Wall  time.Duration `json:"-"`
 }
 
 // SuccessTolerance: a tune succeeds when its final SWR is within this of the best achievable.
@@ -91,8 +156,15 @@ const HitSWR = 2
 // the report is the same for the same options whatever the parallelism.
 func Run(ctx context.Context, o Options) (Report, error) {
 	began := time.Now()
+	if o.Ranges == "" {
+		o.Ranges = StandardRanges
+	}
+	knobs, stations, err := RangesNamed(o.Ranges)
+	if err != nil {
+		return Report{}, err
+	}
 	if o.Stations == nil {
-		o.Stations = sim.Presets()
+		o.Stations = stations
 	}
 	if len(o.Names) == 0 {
 		for n := range o.Stations {
@@ -101,10 +173,9 @@ func Run(ctx context.Context, o Options) (Report, error) {
 		sort.Strings(o.Names)
 	}
 	if o.Knobs.Bands == nil {
-		// Ranges left out take the defaults; a test mode asked for stays on.
-		j := o.Knobs.Jitter
-		o.Knobs = DefaultKnobs()
-		o.Knobs.Jitter = j
+		// Ranges left out take the set's; a test mode asked for and the file's keys stay.
+		knobs.Jitter, knobs.Fixed = o.Knobs.Jitter, o.Knobs.Fixed
+		o.Knobs = knobs
 	}
 	if o.Workers <= 0 {
 		o.Workers = runtime.GOMAXPROCS(0)
@@ -127,7 +198,7 @@ func Run(ctx context.Context, o Options) (Report, error) {
 		go func() {
 			defer wg.Done()
 			for i := range next {
-				results[i], errs[i] = runScenario(ctx, scs[i], o.Knobs)
+				results[i], errs[i] = runScenario(ctx, scs[i], o.Stepped)
 				if o.Progress != nil {
 					mu.Lock()
 					done++
@@ -155,15 +226,23 @@ feed:
 			return Report{}, fmt.Errorf("bench: scenario %d (%s, %v): %w", i, scs[i].Base, scs[i].Freq, err)
 		}
 	}
-	rep := Report{Scenarios: len(scs), Map: o.Map, Seed: o.Seed, Strategies: map[string]Summary{}}
+	rep := Report{Scenarios: len(scs), Map: o.Map, Seed: o.Seed, Ranges: o.Ranges, Strategies: map[string]Summary{},
+		Drawn: Drawn(o.Stations, o.Names, o.Knobs)}
+	if rep.Drawn == nil {
+		rep.Drawn = []Draw{} // nothing drawn: an empty list, not null
+	}
+	var flat []caseResult
 	for _, rs := range results {
 		for _, r := range rs {
 			rep.Cases = append(rep.Cases, r.Case)
+			flat = append(flat, r)
 		}
 	}
 	for _, name := range Strategies {
-		rep.Strategies[name] = summarise(name, results)
+		rep.Strategies[name] = summarise(name, flat)
 	}
+	rep.Coverage = coverageReport(rep.Cases)
+	rep.ByStation = byStation(flat)
 	rep.Wall = time.Since(began)
 	return rep, nil
 }
@@ -173,64 +252,84 @@ type caseResult struct {
 	oracleS float64
 }
 
-// runScenario runs every strategy on a fresh rig for the scenario; the history (warm) is
-// replayed with the controller before each, identically, as the seeds are the same.
-func runScenario(ctx context.Context, sc Scenario, k Knobs) ([]caseResult, error) {
-	var out []caseResult
-	for _, strat := range Strategies {
-		pre := math.NaN()
-		var r *Rig
-		obs := tune.ObserverFunc(func(e tune.Event) {
-			if e.Kind == tune.KindPositioned {
-				pre = r.Station.TrueSWR(Hz(e.Freq))
+// runScenario runs the scenario: the rig is built and, warm, its history replayed once; then
+// the references are computed from the truth as it stands (or, stepped, run on rigs of their
+// own), and the controller tunes.
+func runScenario(ctx context.Context, sc Scenario, stepped bool) ([]caseResult, error) {
+	pre := math.NaN()
+	var r *Rig
+	var probe predictionProbe
+	obs := tune.ObserverFunc(func(e tune.Event) {
+		switch e.Kind {
+		case tune.KindPositioned:
+			pre = r.Station.TrueSWR(Hz(e.Freq))
+		case tune.KindPrediction:
+			probe.observe(r, e)
+		}
+	})
+	r, err := prepared(ctx, sc, obs, func(rig *Rig) { r = rig })
+	if err != nil {
+		return nil, err
+	}
+	pre = math.NaN()
+	tr, err := newTruth(sc.Truth, sc.Seed)
+	if err != nil {
+		return nil, err
+	}
+	var refs []caseResult
+	if !stepped {
+		refs, err = fromTruth(r, sc, tr)
+		if errors.Is(err, errStepIt) {
+			stepped = true
+		} else if err != nil {
+			return nil, err
+		}
+	}
+	probe.on = true
+	a, err := runTankd(ctx, r, sc, &pre)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", Tankd, err)
+	}
+	c, err := caseOf(r, sc, Tankd, a)
+	if err != nil {
+		return nil, err
+	}
+	c.Phases = r.Phases()
+	if c.Prediction, err = probe.prediction(sc, tr); err != nil {
+		return nil, err
+	}
+	out := []caseResult{c}
+	if stepped {
+		for _, strat := range []string{Exhaustive, Oracle} {
+			// The same observer's queries as the controller's rig, so that the simulator (whose
+			// RF model caches by temperature) answers the history as it did there.
+			var r *Rig
+			r, err := prepared(ctx, sc, tune.ObserverFunc(func(e tune.Event) {
+				if e.Kind == tune.KindPositioned {
+					r.Station.TrueSWR(Hz(e.Freq))
+				}
+			}), func(rig *Rig) { r = rig })
+			if err != nil {
+				return nil, err
 			}
-		})
-		var err error
-		r, err = NewRig(RigOptions{Truth: sc.Truth, Described: sc.Described, Start: sc.Start, Observer: obs,
-			NominalBacklash: nominalBacklash(k), Jitter: sc.Jitter})
-		if err != nil {
-			return nil, err
-		}
-		if !r.Axis.Trusted() {
-			// a home switch: home at installation, before anything is measured
-			if res := r.Tuner.Home(ctx); res.Outcome != tune.Homed {
-				return nil, fmt.Errorf("homing: %s: %w", res.Outcome, res.Err)
+			var a attempt
+			if strat == Exhaustive {
+				a, err = runExhaustive(ctx, r, sc)
+			} else {
+				a, err = runOracle(ctx, r, sc)
 			}
+			if err != nil {
+				return nil, fmt.Errorf("%s: %w", strat, err)
+			}
+			c, err := caseOf(r, sc, strat, a)
+			if err != nil {
+				return nil, err
+			}
+			c.Phases = r.Phases()
+			out = append(out, c)
 		}
-		if err := history(ctx, r, sc); err != nil {
-			return nil, err
-		}
-		r.Clock.Advance(sc.At.Sub(r.Clock.Now()))
-		pre = math.NaN()
-		var a attempt
-		switch strat {
-		case Tankd:
-			a, err = runTankd(ctx, r, sc, &pre)
-		case Exhaustive:
-			a, err = runExhaustive(ctx, r, sc)
-		case Oracle:
-			a, err = runOracle(ctx, r, sc)
-		}
-		if err != nil {
-			return nil, fmt.Errorf("%s: %w", strat, err)
-		}
-		f := Hz(sc.Freq)
-		_, best, err := r.Station.Best(f)
-		if err != nil {
-			return nil, err
-		}
-		swr := r.Station.TrueSWR(f)
-		c := caseResult{Case: Case{
-			Scenario: sc.ID, Strategy: strat, Station: sc.Base, Band: sc.Band, FreqHz: f, Outcome: a.outcome,
-			TuneS: a.tuneTime.Seconds(), RFS: a.rfTime.Seconds(), SWR: swr, BestSWR: best,
-			Success: swr <= best+SuccessTolerance, Prepositioned: a.prepositioned,
-			LimitViolations: r.LimitViolations(), Stalls: r.Stalls(),
-			ControllerLimitViolations: r.ControllerLimitViolations(),
-		}}
-		if a.prepositioned {
-			c.PreSWR = a.preSWR
-		}
-		out = append(out, c)
+	} else {
+		out = append(out, refs...)
 	}
 	for i := range out {
 		out[i].oracleS = out[len(out)-1].TuneS
@@ -238,9 +337,82 @@ func runScenario(ctx context.Context, sc Scenario, k Knobs) ([]caseResult, error
 	return out, nil
 }
 
-// nominalBacklash is what the controller is told of the play before calibrating: an upper
-// bound over the scenarios' range.
-func nominalBacklash(k Knobs) int64 { return int64(k.Backlash[1]) + 20 }
+// prepared builds the scenario's rig and brings it to the measured tune's instant: homed if it
+// has a switch, warm with its history. bind is handed the rig as soon as it is built, for an
+// observer that reads it.
+func prepared(ctx context.Context, sc Scenario, obs tune.Observer, bind func(*Rig)) (*Rig, error) {
+	nominal := sc.Nominal
+	if nominal == 0 {
+		nominal = DefaultKnobs().nominal("")
+	}
+	r, err := NewRig(RigOptions{Truth: sc.Truth, Described: sc.Described, Start: sc.Start, Observer: obs,
+		NominalBacklash: nominal, Jitter: sc.Jitter})
+	if err != nil {
+		return nil, err
+	}
+	bind(r)
+	if !r.Axis.Trusted() {
+		// a home switch: home at installation, before anything is measured
+		if res := r.Tuner.Home(ctx); res.Outcome != tune.Homed {
+			return nil, fmt.Errorf("homing: %s: %w", res.Outcome, res.Err)
+		}
+	}
+	if err := history(ctx, r, sc); err != nil {
+		return nil, err
+	}
+	r.Clock.Advance(sc.At.Sub(r.Clock.Now()))
+	return r, nil
+}
+
+// caseOf is the case of a strategy that has run on the rig: the truth at the end of it.
+func caseOf(r *Rig, sc Scenario, strat string, a attempt) (caseResult, error) {
+	f := Hz(sc.Freq)
+	_, best, err := r.Station.Best(f)
+	if err != nil {
+		return caseResult{}, err
+	}
+	swr := r.Station.TrueSWR(f)
+	c := caseResult{Case: Case{
+		Scenario: sc.ID, Strategy: strat, Station: sc.Base, Band: sc.Band, FreqHz: f, Outcome: a.outcome,
+		TuneS: a.tuneTime.Seconds(), RFS: a.rfTime.Seconds(), SWR: swr, BestSWR: best,
+		Success: swr <= best+SuccessTolerance, Prepositioned: a.prepositioned,
+		LimitViolations: r.LimitViolations(), Stalls: r.Stalls(),
+		ControllerLimitViolations: r.ControllerLimitViolations(),
+	}}
+	if a.prepositioned {
+		c.PreSWR = a.preSWR
+	}
+	return c, nil
+}
+
+// fromTruth computes the references' cases from the truth at the rig's instant, leaving the rig
+// as it is.
+func fromTruth(r *Rig, sc Scenario, tr *truth) ([]caseResult, error) {
+	var out []caseResult
+	for i, strat := range []string{Exhaustive, Oracle} {
+		a, err := dryAxisAt(r, tr, uint64(i))
+		if err != nil {
+			return nil, err
+		}
+		var res refResult
+		if strat == Exhaustive {
+			res, err = exhaustiveFromTruth(a, r.Described, sc.Freq)
+		} else {
+			res, err = oracleFromTruth(a, sc.Freq)
+		}
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", strat, err)
+		}
+		out = append(out, caseResult{Case: Case{
+			Scenario: sc.ID, Strategy: strat, Station: sc.Base, Band: sc.Band, FreqHz: Hz(sc.Freq), Outcome: res.outcome,
+			TuneS: res.tuneTime.Seconds(), RFS: res.rfTime.Seconds(), SWR: res.swr, BestSWR: res.best,
+			Success: res.swr <= res.best+SuccessTolerance, Phases: res.phases,
+			LimitViolations: r.LimitViolations(), Stalls: r.Stalls(),
+			ControllerLimitViolations: r.ControllerLimitViolations(),
+		}})
+	}
+	return out, nil
+}
 
 // history replays the warm scenario's earlier tunes: a backlash calibration at the first, then
 // a tune at each, at its time.
@@ -263,32 +435,34 @@ func history(ctx context.Context, r *Rig, sc Scenario) error {
 	return nil
 }
 
-func summarise(name string, results [][]caseResult) Summary {
+func summarise(name string, results []caseResult) Summary {
 	var s Summary
 	var tunes, rfs, excess, overhead []float64
+	phases := make([][]float64, len(PhaseNames))
 	hits, warm, ok := 0, 0, 0
-	for _, rs := range results {
-		for _, r := range rs {
-			if r.Strategy != name {
-				continue
-			}
-			if r.Success {
-				ok++
-			}
-			tunes = append(tunes, r.TuneS)
-			rfs = append(rfs, r.RFS)
-			excess = append(excess, r.SWR-r.BestSWR)
-			overhead = append(overhead, r.TuneS-r.oracleS)
-			if r.Prepositioned {
-				warm++
-				if r.PreSWR <= HitSWR {
-					hits++
-				}
-			}
-			s.LimitViolations += r.LimitViolations
-			s.Stalls += r.Stalls
-			s.ControllerLimitViolations += r.ControllerLimitViolations
+	for _, r := range results {
+		if r.Strategy != name {
+			continue
 		}
+		if r.Success {
+			ok++
+		}
+		tunes = append(tunes, r.TuneS)
+		rfs = append(rfs, r.RFS)
+		excess = append(excess, r.SWR-r.BestSWR)
+		overhead = append(overhead, r.TuneS-r.oracleS)
+		for i, v := range r.Phases.Values() {
+			phases[i] = append(phases[i], v)
+		}
+		if r.Prepositioned {
+			warm++
+			if r.PreSWR <= HitSWR {
+				hits++
+			}
+		}
+		s.LimitViolations += r.LimitViolations
+		s.Stalls += r.Stalls
+		s.ControllerLimitViolations += r.ControllerLimitViolations
 	}
 	n := len(tunes)
 	if n == 0 {
@@ -303,7 +477,54 @@ func summarise(name string, results [][]caseResult) Summary {
 	if warm > 0 {
 		s.PrepositionHitRate = float64(hits) / float64(warm)
 	}
+	s.MeanTuneS, s.MeanRFS = mean(tunes), mean(rfs)
+	means, medians := make([]float64, len(phases)), make([]float64, len(phases))
+	for i, v := range phases {
+		means[i], medians[i] = mean(v), quantile(v, 0.5)
+	}
+	mp, dp := phasesOf(means), phasesOf(medians)
+	s.MeanTravelS, s.MeanSettleS, s.MeanReadingsS = mp.Travel, mp.Settle, mp.Readings
+	s.MeanApproachS, s.MeanVerifyS, s.MeanOtherS = mp.Approach, mp.Verify, mp.Other
+	s.MedianTravelS, s.MedianSettleS, s.MedianReadingsS = dp.Travel, dp.Settle, dp.Readings
+	s.MedianApproachS, s.MedianVerifyS, s.MedianOtherS = dp.Approach, dp.Verify, dp.Other
 	return s
+}
+
+// byStation is tankd's figures station by station.
+func byStation(results []caseResult) map[string]StationSummary {
+	groups := map[string][]caseResult{}
+	for _, r := range results {
+		groups[r.Station] = append(groups[r.Station], r)
+	}
+	out := map[string]StationSummary{}
+	for name, rs := range groups {
+		s := summarise(Tankd, rs)
+		var cases []Case
+		for _, r := range rs {
+			cases = append(cases, r.Case)
+		}
+		n := 0
+		for _, r := range rs {
+			if r.Strategy == Tankd {
+				n++
+			}
+		}
+		out[name] = StationSummary{Scenarios: n, SuccessRate: s.SuccessRate, MedianTuneS: s.MedianTuneS,
+			MedianRFS: s.MedianRFS, MedianOverheadS: s.MedianOverheadS, PrepositionHitRate: s.PrepositionHitRate,
+			Coverage: coverageReport(cases).All}
+	}
+	return out
+}
+
+func mean(v []float64) float64 {
+	if len(v) == 0 {
+		return 0
+	}
+	var sum float64
+	for _, x := range v {
+		sum += x
+	}
+	return sum / float64(len(v))
 }
 
 // quantile is the q-quantile by linear interpolation between order statistics.

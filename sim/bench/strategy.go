@@ -2,6 +2,7 @@ package bench
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"time"
@@ -9,6 +10,9 @@ import (
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/motion"
+	"github.com/tankd/tankd/controller/sense"
+	"github.com/tankd/tankd/controller/station"
+	"github.com/tankd/tankd/controller/tune"
 )
 
 // Strategy names.
@@ -40,24 +44,65 @@ func runTankd(ctx context.Context, r *Rig, sc Scenario, pre *float64) (attempt, 
 	return a, nil
 }
 
+// exhaustiveStartMargin is how far above the soft limit plus the described play the exhaustive
+// sweep starts: room for its run-up (a simple tuner's fixed allowance).
+const exhaustiveStartMargin = 120
+
+// refPower is the tune carrier the references key.
+const refPower = refReadPower * physic.Watt
+
+// carrierSeen is the forward power a reference takes for its carrier being up: half of it (a
+// reading that sees the carrier at all sees most of it; the detectors' floor reads microwatts).
+const carrierSeen = refPower / 2
+
+// maxKeyUpReads bounds a reference's wait for its carrier, in readings: some seconds of them,
+// when a radio keys up in tens of milliseconds (from memory).
+const maxKeyUpReads = 1000
+
+// errNoCarrier: a reference keyed the radio and never saw its carrier.
+var errNoCarrier = errors.New("reference: no carrier after keying")
+
+// readOnCarrier is a reference's first reading after keying: read again until the carrier is
+// up, as a simple tuner checks its forward power.
+func readOnCarrier(ctx context.Context, r *Rig) (sense.Reading, error) {
+	for range maxKeyUpReads {
+		rd, err := r.sensor.Read(ctx)
+		if err != nil || rd.Forward >= carrierSeen {
+			return rd, err
+		}
+	}
+	return sense.Reading{}, errNoCarrier
+}
+
+// exhaustiveStep is the exhaustive sweep's step at f: half the SWR ≤ 1.5 window the
+// description's physics predicts.
+func exhaustiveStep(desc station.Description, f physic.Frequency) (motion.Steps, error) {
+	prior, err := desc.Prior(desc.Site.MeanC)
+	if err != nil {
+		return 0, err
+	}
+	pr, ok := prior.Predict(f)
+	if !ok {
+		return 0, fmt.Errorf("exhaustive: no model at %v", f)
+	}
+	// BW(S) = f·(S−1)/(Q_u·√S) (Yaghjian & Best 2005) with Q_u = 2·Q_L, in steps.
+	window := math.Abs(pr.Slope) * Hz(f) * 0.5 / (2 * pr.Q * math.Sqrt(1.5))
+	return motion.Steps(max(1, math.Floor(window/2))), nil
+}
+
 // runExhaustive is what a simple fixed-step tuner does: a sweep of the whole travel at half the
 // SWR ≤ 1.5 window, one reading a step after the motor settles, then a backlash-correct move to
-// the lowest reading.
+// the lowest reading. It steps the motion loop and the simulator through every move and
+// reading: exhaustiveFromTruth computes the same from the truth, far faster; this one stays to
+// check it. Its phases are counted as a tune's, its final approach as the approaching state.
 func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	clk := r.Time
 	start := clk.Now()
-	f := Hz(sc.Freq)
-	prior, err := r.Described.Prior(r.Described.Site.MeanC)
+	r.timeline.begin()
+	step, err := exhaustiveStep(r.Described, sc.Freq)
 	if err != nil {
 		return attempt{}, err
 	}
-	pr, ok := prior.Predict(sc.Freq)
-	if !ok {
-		return attempt{}, fmt.Errorf("exhaustive: no model at %v", sc.Freq)
-	}
-	// BW(S) = f·(S−1)/(Q_u·√S) (Yaghjian & Best 2005) with Q_u = 2·Q_L, in steps.
-	window := math.Abs(pr.Slope) * f * 0.5 / (2 * pr.Q * math.Sqrt(1.5))
-	step := motion.Steps(max(1, math.Floor(window/2)))
 	ax := r.Axis
 	if !ax.Trusted() {
 		// A simple tuner has no notion of a lost position: it trusts its own count of steps,
@@ -65,14 +110,14 @@ func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 		r.Reference(ax.Position())
 	}
 	lo, hi := ax.SoftLimits()
-	lo += motion.Steps(r.Described.Drive.BacklashSteps) + 120
+	lo += motion.Steps(r.Described.Drive.BacklashSteps) + exhaustiveStartMargin
 	if err := r.Station.Radio.SetFrequency(sc.Freq); err != nil {
 		return attempt{}, err
 	}
 	if err := ax.Approach(ctx, lo); err != nil {
 		return attempt{}, err
 	}
-	if err := r.Station.Radio.Key(ctx, 5*physic.Watt); err != nil {
+	if err := r.Station.Radio.Key(ctx, refPower); err != nil {
 		return attempt{}, err
 	}
 	rfStart := clk.Now()
@@ -81,7 +126,11 @@ func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 		if err := ax.MoveTo(ctx, p, 0); err != nil {
 			return attempt{}, err
 		}
-		rd, err := r.Station.Sensor().Read(ctx)
+		read := r.sensor.Read
+		if p == lo {
+			read = func(ctx context.Context) (sense.Reading, error) { return readOnCarrier(ctx, r) }
+		}
+		rd, err := read(ctx)
 		if err != nil {
 			return attempt{}, err
 		}
@@ -93,17 +142,22 @@ func runExhaustive(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	if err := r.Station.Radio.Unkey(ctx); err != nil {
 		return attempt{}, err
 	}
+	r.timeline.stateChanged(tune.Approaching)
 	if err := ax.Approach(ctx, best); err != nil {
 		return attempt{}, err
 	}
+	r.timeline.end()
 	return attempt{tuneTime: clk.Now().Sub(start), rfTime: rf, outcome: "swept"}, nil
 }
 
 // runOracle is the lower bound: it knows where the best position is, approaches it with the
-// true play taken up, and reads once.
+// true play taken up, and reads once. It steps the motion loop; oracleFromTruth computes the
+// same from the truth. Its phases: the approach, and the reading as the verify.
 func runOracle(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 	clk := r.Time
 	start := clk.Now()
+	r.timeline.begin()
+	r.timeline.stateChanged(tune.Approaching)
 	st := r.Station
 	if err := st.Radio.SetFrequency(sc.Freq); err != nil {
 		return attempt{}, err
@@ -134,16 +188,18 @@ func runOracle(ctx context.Context, r *Rig, sc Scenario) (attempt, error) {
 			break
 		}
 	}
-	if err := st.Radio.Key(ctx, 5*physic.Watt); err != nil {
+	if err := st.Radio.Key(ctx, refPower); err != nil {
 		return attempt{}, err
 	}
+	r.timeline.stateChanged(tune.Verifying)
 	rfStart := clk.Now()
-	if _, err := st.Sensor().Read(ctx); err != nil {
+	if _, err := readOnCarrier(ctx, r); err != nil {
 		return attempt{}, err
 	}
 	rf := clk.Now().Sub(rfStart)
 	if err := st.Radio.Unkey(ctx); err != nil {
 		return attempt{}, err
 	}
+	r.timeline.end()
 	return attempt{tuneTime: clk.Now().Sub(start), rfTime: rf, outcome: "placed"}, nil
 }

@@ -59,6 +59,14 @@ type watch struct {
 	ctrlCrossings int
 
 	fail bool // refuse the next Start (fault injection)
+
+	// The gear play as the axis books it, for the references that carry on from the axis's
+	// state (see dryAxis): the direction the pulses last went and how many went that way since
+	// it last reversed, forgotten when the motor is released, as motion.Axis forgets it.
+	lastDir  motion.Direction
+	run      motion.Steps
+	counted  int64 // pulses of the current move already in run
+	timeline *timeline
 }
 
 // errDriveFailed is the injected drive failure.
@@ -73,6 +81,8 @@ func (w *watch) Start(m motion.Move) error {
 		return err
 	}
 	w.start, w.dir, w.ctrlFlagged, w.moveFlagged, w.endSeen = w.pos, m.Dir, false, false, false
+	w.counted = 0
+	w.timeline.moveStarted()
 	if !w.heldSince {
 		w.heldSince = true
 		w.checkShaft()
@@ -86,16 +96,38 @@ func (w *watch) Enable(on bool) error {
 	if !on {
 		w.heldSince = false
 	}
-	return w.Drive.Enable(on)
+	err := w.Drive.Enable(on)
+	if !on {
+		w.forgetPlay()
+	} else if err == nil {
+		w.timeline.enabled()
+	}
+	return err
 }
 
 func (w *watch) Halt() error {
 	w.heldSince = false
-	return w.Drive.Halt()
+	err := w.Drive.Halt()
+	w.forgetPlay()
+	return err
+}
+
+// forgetPlay forgets the gear play, as the axis does when the motor is released: the pulses
+// emitted so far went into the play forgotten.
+func (w *watch) forgetPlay() {
+	w.counted, _ = w.Drive.Progress()
+	w.lastDir, w.run = 0, 0
 }
 
 func (w *watch) Progress() (int64, bool) {
 	e, running := w.Drive.Progress()
+	if n := e - w.counted; n > 0 {
+		w.counted = e
+		if w.dir != w.lastDir {
+			w.lastDir, w.run = w.dir, 0
+		}
+		w.run += n
+	}
 	w.pos = w.start + motion.Steps(w.dir)*e
 	if w.synced && !w.ignore && !w.ctrlFlagged && (w.pos < w.lo || w.pos > w.hi) {
 		w.ctrlCrossings++
@@ -104,6 +136,7 @@ func (w *watch) Progress() (int64, bool) {
 	if !running && !w.endSeen {
 		w.endSeen = true
 		w.checkShaft()
+		w.timeline.moveStopped()
 	}
 	return e, running
 }
