@@ -13,10 +13,12 @@ import (
 	"github.com/tankd/tankd/controller/store"
 )
 
-// The map file's signature and the one version this build reads and writes.
+// The map file's signature, the version this build writes, and the older one it still reads.
 const (
 	fileMagic   = "tankd-tunemap"
-	fileVersion = 1
+	fileVersion = 2
+	// fileVersion1 had no calib line: a map read from it starts from the options' guesses.
+	fileVersion1 = 1
 	// PrevSuffix is appended to a map file's path to name the previous good copy.
 	PrevSuffix = store.PrevSuffix
 )
@@ -93,6 +95,15 @@ func (m *Map) encodeBody() []byte {
 	b = appendOptCelsius(b, f.tref, f.hasRef)
 	b = append(b, " trec="...)
 	b = appendOptCelsius(b, f.trec, f.hasRec)
+	b = append(b, "\ncalib"...)
+	for k, name := range calibNames {
+		b = append(b, ' ')
+		b = append(b, name...)
+		b = append(b, '=')
+		b = appendFloat(b, m.cal.w[k])
+		b = append(b, ',')
+		b = appendFloat(b, m.cal.s[k])
+	}
 	b = fmt.Appendf(b, "\npoints %d\n", len(m.ents))
 
 	order := make([]int, len(m.ents))
@@ -210,8 +221,8 @@ func checkSignature(body []byte) error {
 	}
 	if v, err := strconv.Atoi(ver); err != nil || v < 1 || strconv.Itoa(v) != ver {
 		return fmt.Errorf("%w: bad version %q", ErrCorrupt, ver)
-	} else if v != fileVersion {
-		return fmt.Errorf("%w %d: this build reads version %d", ErrVersion, v, fileVersion)
+	} else if v != fileVersion && v != fileVersion1 {
+		return fmt.Errorf("%w %d: this build reads versions %d and %d", ErrVersion, v, fileVersion1, fileVersion)
 	}
 	return nil
 }
@@ -262,11 +273,16 @@ func fields(n int, line, keyword string, keys ...string) ([]string, error) {
 // fuzzed beyond the checksum.
 func parseBody(body []byte, o resolved) (*Map, error) {
 	lines := strings.Split(strings.TrimSuffix(string(body), "\n"), "\n")
-	if len(lines) < 3 {
-		return nil, fmt.Errorf("%w: %d lines, want at least 3", ErrCorrupt, len(lines))
+	head := 3 // the signature, the drift line, the calib line (version 2 on)
+	switch lines[0] {
+	case fmt.Sprintf("%s %d", fileMagic, fileVersion):
+	case fmt.Sprintf("%s %d", fileMagic, fileVersion1):
+		head = 2
+	default:
+		return nil, lineErr(1, "want the signature %s %d (or %d)", fileMagic, fileVersion, fileVersion1)
 	}
-	if lines[0] != fmt.Sprintf("%s %d", fileMagic, fileVersion) {
-		return nil, lineErr(1, "want the signature %s %d", fileMagic, fileVersion)
+	if len(lines) < head+1 {
+		return nil, fmt.Errorf("%w: %d lines, want at least %d", ErrCorrupt, len(lines), head+1)
 	}
 	m := &Map{o: o}
 	v, err := fields(2, lines[1], "drift", "at", "x", "p", "tref", "trec")
@@ -295,17 +311,23 @@ func parseBody(body []byte, o resolved) (*Map, error) {
 		return nil, lineErr(2, "trec: %v", err)
 	}
 
-	cnt, ok := strings.CutPrefix(lines[2], "points ")
+	if head == 3 {
+		if m.cal, err = parseCalib(3, lines[2]); err != nil {
+			return nil, err
+		}
+	}
+
+	cnt, ok := strings.CutPrefix(lines[head], "points ")
 	n, err := strconv.Atoi(cnt)
 	if !ok || err != nil || n < 0 || strconv.Itoa(n) != cnt {
-		return nil, lineErr(3, "want \"points N\"")
+		return nil, lineErr(head+1, "want \"points N\"")
 	}
-	if len(lines) != 3+n {
-		return nil, fmt.Errorf("%w: %d point lines, the header says %d", ErrCorrupt, len(lines)-3, n)
+	if len(lines) != head+1+n {
+		return nil, fmt.Errorf("%w: %d point lines, the header says %d", ErrCorrupt, len(lines)-head-1, n)
 	}
 	m.ents = make([]entry, 0, n)
-	for i, line := range lines[3:] {
-		e, err := parsePoint(4+i, line)
+	for i, line := range lines[head+1:] {
+		e, err := parsePoint(head+2+i, line)
 		if err != nil {
 			return nil, err
 		}
@@ -440,4 +462,28 @@ func parseMat(s string) (mat, error) {
 		p[i/ns][i%ns] = v[i]
 	}
 	return p, nil
+}
+
+// calibNames are the keys of the calib line, one for each source of error, in order.
+var calibNames = [nComp]string{cShape: "shape", cEps: "eps", cOff: "off", cNoise: "noise", cPrior: "prior"}
+
+// parseCalib reads the calib line: for each source, its evidence as weight,sum; both finite
+// and not negative.
+func parseCalib(n int, line string) (calib, error) {
+	var c calib
+	v, err := fields(n, line, "calib", calibNames[:]...)
+	if err != nil {
+		return c, err
+	}
+	for k, s := range v {
+		xs, err := parseFloats(s, 2)
+		if err != nil {
+			return c, lineErr(n, "%s: %v", calibNames[k], err)
+		}
+		if xs[0] < 0 || xs[1] < 0 {
+			return c, lineErr(n, "%s: evidence %g,%g is negative", calibNames[k], xs[0], xs[1])
+		}
+		c.w[k], c.s[k] = xs[0], xs[1]
+	}
+	return c, nil
 }

@@ -107,11 +107,12 @@ func twoSaves(t *testing.T, path string) (older, newer []Point, data []byte) {
 	return older, m.Points(), data
 }
 
-// A map file written before persistence moved to the store package, kept in testdata, still
-// loads, and the map saves back to the very same bytes: the format has not changed.
+// A map file of version 1 (written before the map kept the evidence of its errors), kept in
+// testdata, still loads, with no evidence: the options' guesses. Saved again, it is version 2:
+// the same lines, with an empty calib line after the drift line.
 func TestLoadVersion1File(t *testing.T) {
 	const golden = "testdata/version1.map"
-	want, err := os.ReadFile(golden)
+	old, err := os.ReadFile(golden)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -122,6 +123,41 @@ func TestLoadVersion1File(t *testing.T) {
 	// Its points line says 4, its drift line at=2026-01-01T00:32:00Z.
 	if at := time.Date(2026, 1, 1, 0, 32, 0, 0, time.UTC); m.Len() != 4 || !m.Drift().At.Equal(at) {
 		t.Fatalf("loaded %d points, drift at %v; want 4 points, drift at %v", m.Len(), m.Drift().At, at)
+	}
+	if m.cal != (calib{}) {
+		t.Fatalf("a version 1 map has evidence %+v", m.cal)
+	}
+	body, err := store.Verify(old)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.SplitAfter(string(body), "\n")
+	lines[0] = "tankd-tunemap 2\n"
+	lines = slices.Insert(lines, 2, "calib shape=0,0 eps=0,0 off=0,0 noise=0,0 prior=0,0\n")
+	want := store.AppendChecksum([]byte(strings.Join(lines, "")))
+	if got := m.encode(); !bytes.Equal(got, want) {
+		t.Fatalf("saved again:\n%s\nwant:\n%s", got, want)
+	}
+}
+
+// A map file of version 2, kept in testdata, loads with its evidence and saves back to the very
+// same bytes: the format has not changed.
+func TestLoadVersion2File(t *testing.T) {
+	const golden = "testdata/version2.map"
+	want, err := os.ReadFile(golden)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := Load(golden, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// It is the version 1 map after four more tunes, the last at 02:00.
+	if at := time.Date(2026, 1, 1, 2, 0, 0, 0, time.UTC); m.Len() != 8 || !m.Drift().At.Equal(at) {
+		t.Fatalf("loaded %d points, drift at %v; want 8 points, drift at %v", m.Len(), m.Drift().At, at)
+	}
+	if m.cal.w[cShape] == 0 || m.cal.w[cNoise] == 0 {
+		t.Fatalf("the evidence did not load: %+v", m.cal)
 	}
 	path := filepath.Join(t.TempDir(), "tune.map")
 	if err := m.Save(path); err != nil {
@@ -214,16 +250,16 @@ func TestLoadWithoutAnyGoodCopy(t *testing.T) {
 func TestNewerVersionIsNotReplacedByPrevious(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "tune.map")
 	twoSaves(t, path)
-	data := store.AppendChecksum([]byte("tankd-tunemap 2\nwhatever comes in version 2\n"))
+	data := store.AppendChecksum([]byte("tankd-tunemap 3\nwhatever comes in version 3\n"))
 	if err := os.WriteFile(path, data, 0o600); err != nil {
 		t.Fatal(err)
 	}
 	m, err := Load(path, Options{})
 	if m != nil || !errors.Is(err, ErrVersion) {
-		t.Fatalf("Load of a version 2 file = %v, %v; want nil and ErrVersion", m, err)
+		t.Fatalf("Load of a version 3 file = %v, %v; want nil and ErrVersion", m, err)
 	}
 	if errors.Is(err, ErrUsedPrevious) || errors.Is(err, ErrCorrupt) {
-		t.Fatalf("Load of a version 2 file: %v; want ErrVersion alone", err)
+		t.Fatalf("Load of a version 3 file: %v; want ErrVersion alone", err)
 	}
 }
 

@@ -72,9 +72,7 @@ func (m *Map) refit() {
 	}
 	xmin, xmax := ents[0].x, ents[n-1].x
 	fm.k = 2
-	if m.o.quadMin > 0 && n >= m.o.quadMin && xmax >= quadSpan*xmin {
-		fm.k = 3
-	}
+	quad := m.o.quadMin > 0 && n >= m.o.quadMin && xmax >= quadSpan*xmin
 	for i := range ents {
 		fm.xc += ents[i].x / float64(n)
 	}
@@ -83,12 +81,13 @@ func (m *Map) refit() {
 		fm.xs = 1e-12*math.Abs(fm.xc) + math.SmallestNonzeroFloat64
 	}
 	tau2, bend2 := 0.0, 0.0
+	pv := m.posVar()
 	for pass := range fitPasses {
 		m.multiplicity(fm.reach, tau2)
-		if !fm.solve(ents, tau2+m.o.posVar) {
+		if !fm.solve(ents, tau2+pv) {
 			// A quadratic the points cannot carry falls back to the straight line.
 			fm.k = 2
-			if !fm.solve(ents, tau2+m.o.posVar) {
+			if !fm.solve(ents, tau2+pv) {
 				m.fit = model{pbar: fm.pbar, cbar: fm.cbar}
 				return
 			}
@@ -114,12 +113,32 @@ func (m *Map) refit() {
 			if reach == 0 {
 				reach = defaultReachShare * hmax
 			}
+			// The deviation a learned point leaves unknown beside it grows as τ·d/reach; the
+			// map's errors there say whether the law is smoother than that (calib), and a
+			// smoother law is a longer reach, not a smaller bend: far from every point, the
+			// law may still stray by all of Bend.
+			reach *= m.cal.reachFactor()
 			_, dgc, _ := fm.eval(fm.xc)
 			fm.reach = math.Max(reach/math.Max(math.Abs(dgc), 1e-300), 1e-12*math.Abs(fm.xc))
 		}
 		dof := math.Max(neff-float64(fm.k), 0)
-		excess := math.Max(ss-dof*m.o.posVar, 0)
+		excess := math.Max(ss-dof*pv, 0)
 		tau2 = (benchNu*bend2 + excess) / (benchNu + dof)
+		if pass == 0 && quad {
+			// A bend of the global model needs points that tell it from the residuals': as
+			// many independent ones as QuadMinPoints asks, a cluster of close points counting
+			// about once (they share one local deviation). Six points learned in two bands
+			// are two such, and a quadratic through them is a guess whose uncertainty would
+			// swamp every extrapolation beyond them.
+			m.multiplicity(fm.reach, tau2)
+			var n float64
+			for i := range ents {
+				n += 1 / ents[i].mult
+			}
+			if n >= float64(m.o.quadMin) {
+				fm.k = 3
+			}
+		}
 	}
 	fm.tau2 = tau2
 	m.fit = fm
@@ -219,10 +238,11 @@ func (fm *model) corr(d float64) float64 {
 }
 
 // residual returns the interpolated local deviation from the global model at x, its variance,
-// and the neighbours.
-func (m *Map) residual(x float64) (mean, vr float64, nb nbrs) {
+// the part of that variance that is the neighbours' position noise passed on (the rest is the
+// law's own deviation between and beyond them), and the neighbours.
+func (m *Map) residual(x float64) (mean, vr, vn float64, nb nbrs) {
 	fm := &m.fit
-	tau2, v := fm.tau2, m.o.posVar
+	tau2, v := fm.tau2, m.posVar()
 	nb.l = m.around(x)
 	nb.r = nb.l + 1
 	if nb.r >= len(m.ents) {
@@ -251,6 +271,7 @@ func (m *Map) residual(x float64) (mean, vr float64, nb nbrs) {
 		cr := (a11*kr - a12*kl) / det
 		mean = cl*el.r + cr*er.r
 		vr = tau2 - cl*kl - cr*kr
+		vn = v * (cl*cl + cr*cr)
 		nb.cl, nb.cr = cl, cr
 	case nb.l >= 0 || nb.r >= 0:
 		j := nb.l
@@ -267,10 +288,46 @@ func (m *Map) residual(x float64) (mean, vr float64, nb nbrs) {
 		}
 		mean = c * e.r
 		vr = tau2 - c*tau2*a
+		vn = v * c * c
 	default:
 		vr = tau2
 	}
-	return mean, math.Max(vr, 0), nb
+	vr = math.Max(vr, 0)
+	vn = math.Min(vn, vr)
+	return mean, vr, vn, nb
+}
+
+// residualWithout is the local deviation at x interpolated from the neighbours of entry skip
+// either side of it, as if it had not been learned, and its variance.
+func (m *Map) residualWithout(x float64, skip int) (mean, vr float64) {
+	fm := &m.fit
+	tau2, v := fm.tau2, m.posVar()
+	l, r := skip-1, skip+1
+	switch {
+	case l >= 0 && r < len(m.ents):
+		el, er := &m.ents[l], &m.ents[r]
+		al, ar := fm.corr(x-el.x), fm.corr(er.x-x)
+		alr := fm.corr(er.x - el.x)
+		a11, a12 := tau2+v, tau2*alr
+		kl, kr := tau2*al, tau2*ar
+		det := a11*a11 - a12*a12
+		if !(det > 0) {
+			return 0, tau2
+		}
+		cl := (a11*kl - a12*kr) / det
+		cr := (a11*kr - a12*kl) / det
+		return cl*el.r + cr*er.r, math.Max(tau2-cl*kl-cr*kr, 0)
+	case l >= 0 || r < len(m.ents):
+		j := l
+		if j < 0 {
+			j = r
+		}
+		e := &m.ents[j]
+		a := fm.corr(x - e.x)
+		c := tau2 * a / (tau2 + v)
+		return c * e.r, math.Max(tau2-c*tau2*a, 0)
+	}
+	return 0, tau2
 }
 
 // meanAt returns the model's position at x in the reference state, its variance, and the
@@ -278,10 +335,13 @@ func (m *Map) residual(x float64) (mean, vr float64, nb nbrs) {
 // at x less the basis at the neighbours as their residuals are weighted, because an error of
 // the global model at a learned point is taken up by that point's residual. Near a point that
 // the residuals follow, the global model's error cancels; where they are mostly noise, it stays.
-func (m *Map) meanAt(x float64) (mean, v float64, nb nbrs) {
+//
+// The variance comes in two parts: vs, from the law's deviation (τ²), and vn, from the learned
+// positions' noise, so that the map's errors can tell which of the two its options misjudged.
+func (m *Map) meanAt(x float64) (mean, vs, vn float64, nb nbrs) {
 	fm := &m.fit
 	g, _, _ := fm.eval(x)
-	r, rv, nb := m.residual(x)
+	r, rv, rn, nb := m.residual(x)
 	phi := fm.basis(x)
 	if nb.l >= 0 && nb.cl != 0 {
 		pl := fm.basis(m.ents[nb.l].x)
@@ -301,7 +361,14 @@ func (m *Map) meanAt(x float64) (mean, v float64, nb nbrs) {
 			gv += phi[i] * fm.cov[i][j] * phi[j]
 		}
 	}
-	return g + r, math.Max(gv, 0) + rv, nb
+	// The fit weighs every point by τ² + the position variance: its uncertainty is theirs in
+	// that proportion.
+	gv = math.Max(gv, 0)
+	gn := 0.0
+	if t := fm.tau2 + m.posVar(); t > 0 {
+		gn = gv * m.posVar() / t
+	}
+	return g + r, gv - gn + rv - rn, gn + rn, nb
 }
 
 func (fm *model) basis(x float64) [3]float64 {
@@ -312,7 +379,7 @@ func (fm *model) basis(x float64) [3]float64 {
 // mean returns the model's position at x in the reference state.
 func (m *Map) mean(x float64) float64 {
 	g, _, _ := m.fit.eval(x)
-	r, _, _ := m.residual(x)
+	r, _, _, _ := m.residual(x)
 	return g + r
 }
 
@@ -326,7 +393,7 @@ func (m *Map) multiplicity(reach, tau2 float64) {
 	ents := m.ents
 	c := 0.0
 	if tau2 > 0 && reach > 0 {
-		c = tau2 / (tau2 + m.o.posVar)
+		c = tau2 / (tau2 + m.posVar())
 	}
 	for i := range ents {
 		ents[i].mult = 1

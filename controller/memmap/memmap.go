@@ -67,7 +67,9 @@ type Prediction struct {
 	// Pos is the expected position, in steps.
 	Pos float64
 	// Sigma is the 1-σ uncertainty of Pos, in steps: a search window of ±2σ holds the dip about
-	// 95 % of the time.
+	// 95 % of the time, ±3σ nearly always. It is calibrated by the map's record of its errors
+	// (see "An honest σ" in the package documentation), and errs on the wide side while that
+	// record is short.
 	Sigma float64
 	// Slope is dPos/dFreq at that frequency, in steps per hertz: negative for a capacitor whose
 	// capacitance grows with position. It converts a dip's width in hertz to steps.
@@ -89,7 +91,8 @@ const (
 )
 
 // Prior predicts the dip from a physics model of the loop, without any learned points. Its
-// Sigma must be honest too: the map trusts it as given.
+// Sigma must be honest too: the map starts from it, and scales it as the prior's errors at the
+// learned points show.
 type Prior interface {
 	Predict(f physic.Frequency) (Prediction, bool)
 }
@@ -139,7 +142,11 @@ type Map struct {
 	ents []entry // sorted by x
 	flt  filter
 	fit  model
+	cal  calib
 }
+
+// posVar is the variance of a learned position, steps², as the map's errors have shown it.
+func (m *Map) posVar() float64 { return m.cal.scale(cNoise) * m.o.posVar }
 
 // New returns an empty map.
 func New(opts Options) (*Map, error) {
@@ -266,6 +273,13 @@ func (m *Map) Learn(p Point) error {
 			e.p[i][i] += w[i][i]
 		}
 	case !m.flt.started:
+		if len(m.ents) == 0 && m.o.prior != nil {
+			// the bare prior's error at the first tune is the only measure of it there is
+			q := m.query(p.Freq, e.fHz, e.u, p.At, e.dT)
+			if pr, ok := m.predict(&q); ok {
+				m.score(&pr, float64(p.Pos), nil)
+			}
+		}
 		m.flt.start(p.At, &m.o)
 		e.p, e.c = m.flt.p, m.flt.p
 	case p.At.Before(m.flt.at):
@@ -281,8 +295,10 @@ func (m *Map) Learn(p Point) error {
 		for i := range m.ents {
 			m.ents[i].c = decayRows(a, &m.ents[i].c)
 		}
+		m.cal.fade(a)
 		q := m.query(p.Freq, e.fHz, e.u, p.At, e.dT)
 		if pr, ok := m.predict(&q); ok {
+			m.score(&pr, float64(p.Pos), &q)
 			m.absorb(&pr, &q, float64(p.Pos)-pr.Pos)
 		}
 		e.p, e.c = m.flt.p, m.flt.p
@@ -322,7 +338,7 @@ func (m *Map) evict(keep int) {
 
 // Forget removes every point for which match returns true, and returns how many went. Use it
 // when positions learned in some span of frequency or time are known to be wrong; match must not
-// call the map.
+// call the map. The record of the map's errors stays: it is about the loop, not those points.
 func (m *Map) Forget(match func(Point) bool) int {
 	m.mu.Lock()
 	defer m.mu.Unlock()
@@ -335,12 +351,14 @@ func (m *Map) Forget(match func(Point) bool) int {
 	return n - len(m.ents)
 }
 
-// Reset forgets every point and the drift estimate: the map is as new.
+// Reset forgets every point, the drift estimate and the record of the map's errors: the map is
+// as new.
 func (m *Map) Reset() {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	m.ents = nil
 	m.flt = filter{}
+	m.cal = calib{}
 	m.refit()
 }
 
@@ -403,13 +421,20 @@ func (m *Map) Predict(f physic.Frequency, at time.Time, temp *physic.Temperature
 // outcome is a prediction with what the drift filter needs of it: the position's sensitivity
 // to ε (steps per unit of fractional slope change, u·dPos/du), the covariance of the drift
 // estimate's error with the prediction's error, and the points the prediction's drift rests on
-// with their weights.
+// with their weights; and, for calib, Sigma² split by the source of the error.
+//
+// Sigma is calibrated: each source's variance is scaled by what the map's errors have shown
+// (calib). The drift filter runs on the options' own model of the wander, whose covariances it
+// has carried through every tune and cannot rescale after the fact; vf is the variance of the
+// prediction in that model, the one its updates must use.
 type outcome struct {
 	Prediction
-	h    float64
-	gain vec
-	nb   [2]int // −1: none
-	w    [2]float64
+	h     float64
+	gain  vec
+	nb    [2]int // −1: none
+	w     [2]float64
+	parts [nComp]float64
+	vf    float64
 }
 
 // absorb updates the drift estimate with a tune that landed r steps from the prediction pr
@@ -423,8 +448,7 @@ type outcome struct {
 // reference state is never observed, only changes from it) shared.
 func (m *Map) absorb(pr *outcome, q *query, r float64) {
 	pinv := pseudoInverse(&m.flt.p)
-	s := pr.Sigma*pr.Sigma + m.o.posVar
-	k, ok := m.flt.update(pr.gain, r, s)
+	k, ok := m.flt.update(pr.gain, r, pr.vf+m.posVar())
 	if !ok {
 		return
 	}
@@ -463,38 +487,194 @@ func (m *Map) absorb(pr *outcome, q *query, r float64) {
 	}
 }
 
-// predict returns the best prediction for q.
+// predict returns the best prediction for q: the map's own where it has a fit, or the prior
+// anchored to the nearest learned point, whichever has been right.
+//
+// Each has a σ, calibrated by the map's record of its errors (calib), and the one with the
+// clearly smaller σ is the one that knows more. Within the reach of the learned points (the distance
+// over which the map takes their local deviations to carry), each σ is first judged by how
+// well that predictor does at the one or two points nearest the query, each predicted from the
+// others (leave-one-out): the extrapolation a query beyond a band's last learned point asks
+// for, at the scale of the points' own spacing. A predictor whose errors there were a tenth of
+// its σ is taken to be ten times as good as its σ says, here too.
 func (m *Map) predict(q *query) (outcome, bool) {
 	n := len(m.ents)
 	if n == 0 {
-		if m.o.prior == nil {
-			return outcome{}, false
-		}
-		p, ok := m.o.prior.Predict(q.f)
-		if !ok || !finite(p.Pos) || !finite(p.Sigma) || !finite(p.Slope) {
-			return outcome{}, false
-		}
-		p.Source = SourcePrior
-		return outcome{Prediction: p, h: -q.fHz / 2 * p.Slope, nb: [2]int{-1, -1}}, true
+		return m.predictPrior(q)
 	}
-	near := m.nearest(q.u * (1 + q.eps))
+	xq := q.u * (1 + q.eps)
+	near := m.nearest(xq)
 	ap, aok := m.predictAnchored(q, near)
 	if m.fit.k == 0 {
 		return ap, aok
 	}
 	mp := m.predictMap(q)
-	// Near learned points the two are much alike, and picking whichever claims the smaller σ
-	// would pick the luckier error estimate; the prior takes over only where it is clearly
-	// better, away from the points.
-	if aok && ap.Sigma < anchoredPreference*mp.Sigma {
+	if !aok {
+		return mp, true
+	}
+	zm, za := 1.0, 1.0
+	if a, b, ok := m.record(xq, near); ok {
+		zm, za = math.Max(a, recordFloor), math.Max(b, recordFloor)
+	}
+	if za*ap.Sigma < anchoredPreference*zm*mp.Sigma {
 		return ap, true
 	}
 	return mp, true
 }
 
-// anchoredPreference is how much smaller the anchored prior's σ must be for it to be used
-// instead of the map's.
+// anchoredPreference is how much smaller the anchored prior's σ, so judged, must be for it to be
+// used instead of the map's. At and near the learned points the two predict alike, and picking
+// whichever claims the smaller σ would pick the luckier error estimate; the prior takes over
+// only where it is clearly better.
 const anchoredPreference = 0.7
+
+// recordFloor is the least error, in its own σ, that a predictor's record near the query is
+// taken at: a record better than a tenth of σ (√calibFloor, for the same reason) says no more,
+// and two such records leave the choice to the σ.
+const recordFloor = 0.1
+
+// record returns the root-mean-square errors, in their own σ, with which the map's fit and the
+// anchored prior predict the learned point j nearest xq and the next one beyond it from xq,
+// each from the other points; ok is false if xq is beyond the reach of j or there is nothing to
+// compare.
+func (m *Map) record(xq float64, j int) (zmap, zanch float64, ok bool) {
+	if math.Abs(xq-m.ents[j].x) > m.fit.reach {
+		return 0, 0, false
+	}
+	var sm, sa float64
+	k := 0
+	for _, i := range [2]int{j, j + m.away(xq, j)} {
+		if i < 0 || i >= len(m.ents) {
+			continue
+		}
+		a, b, good := m.leaveOut(i)
+		if !good {
+			continue
+		}
+		sm += a * a
+		sa += b * b
+		k++
+	}
+	if k == 0 {
+		return 0, 0, false
+	}
+	return math.Sqrt(sm / float64(k)), math.Sqrt(sa / float64(k)), true
+}
+
+// away is the step from entry j away from xq: +1 if xq lies below it, −1 if above.
+func (m *Map) away(xq float64, j int) int {
+	if xq < m.ents[j].x {
+		return 1
+	}
+	return -1
+}
+
+// leaveOut returns the errors, each in its own σ, with which the map's fit and the prior
+// anchored to the nearest other point predict entry i without it; good is false if either
+// cannot.
+//
+// The fit's is exact for its global model (the residual over 1 − the point's leverage, the
+// standard leave-one-out identity of least squares), with the local deviation interpolated from
+// the point's neighbours alone. Both compare positions in the state each point was placed in,
+// so the drift since does not enter; their σ are the map's, calibrated as its predictions' are.
+func (m *Map) leaveOut(i int) (zmap, zanch float64, good bool) {
+	fm := &m.fit
+	e := &m.ents[i]
+	if m.o.prior == nil || len(m.ents) < 2 {
+		return 0, 0, false
+	}
+	pv := m.posVar()
+	// the fit
+	phi := fm.basis(e.x)
+	var g float64
+	for a := range fm.k {
+		for b := range fm.k {
+			g += phi[a] * fm.cov[a][b] * phi[b]
+		}
+	}
+	w := (fm.tau2 + pv) * e.mult // the variance the fit gave the point
+	h := g / w
+	if !(h < 1-1e-9) {
+		return 0, 0, false
+	}
+	rm, rv := m.residualWithout(e.x, i)
+	em := e.r/(1-h) - rm
+	vm := g/(1-h) + rv + pv
+	// the prior, anchored to the nearest other point
+	k := i - 1
+	if k < 0 || i+1 < len(m.ents) && m.ents[i+1].x-e.x < e.x-m.ents[k].x {
+		k = i + 1
+	}
+	ek := &m.ents[k]
+	pp, ok1 := m.o.prior.Predict(e.pt.Freq)
+	pa, ok2 := m.o.prior.Predict(ek.pt.Freq)
+	if !ok1 || !ok2 || !finite(pp.Pos) || !finite(pa.Pos) || !finite(pp.Slope) || !finite(pp.Sigma) || !finite(pa.Sigma) {
+		return 0, 0, false
+	}
+	hs := -e.fHz / 2 * pp.Slope
+	ea := float64(e.pt.Pos) - (pp.Pos + (float64(ek.pt.Pos) - pa.Pos) + hs*(e.eps-ek.eps) + (e.off - ek.off))
+	va := m.cal.scale(cPrior)*m.priorDiffVar(&pp, &pa, e.fHz, ek.fHz) + 2*pv
+	if !(vm > 0) || !(va > 0) {
+		return 0, 0, false
+	}
+	return math.Abs(em) / math.Sqrt(vm), math.Abs(ea) / math.Sqrt(va), true
+}
+
+// priorDiffVar is the variance of the difference of the prior's errors at two frequencies (in
+// MHz) with predictions p and a: alike when the frequencies are close, so that an anchor
+// cancels them there and not far away.
+func (m *Map) priorDiffVar(p, a *Prediction, f, fa float64) float64 {
+	dl := math.Log(f / fa)
+	rho := math.Exp(-dl * dl / m.o.priorReachSq2)
+	return math.Max(p.Sigma*p.Sigma+a.Sigma*a.Sigma-2*rho*p.Sigma*a.Sigma, 0)
+}
+
+// predictPrior is the prior alone, for an empty map.
+func (m *Map) predictPrior(q *query) (outcome, bool) {
+	if m.o.prior == nil {
+		return outcome{}, false
+	}
+	p, ok := m.o.prior.Predict(q.f)
+	if !ok || !finite(p.Pos) || !finite(p.Sigma) || !finite(p.Slope) {
+		return outcome{}, false
+	}
+	v := m.cal.scale(cPrior) * p.Sigma * p.Sigma
+	p.Sigma = math.Sqrt(v)
+	p.Source = SourcePrior
+	o := outcome{Prediction: p, h: -q.fHz / 2 * p.Slope, nb: [2]int{-1, -1}, vf: v}
+	o.parts[cPrior] = v
+	return o, true
+}
+
+// score notes the error of the prediction pr (made for q; nil for the bare prior) against the
+// position a tune found, in the calibration: the sources pr rests on learn from it, and the
+// predictor that was not used is scored too, for its own source alone, so that the choice
+// between them has the errors of both to go by.
+func (m *Map) score(pr *outcome, found float64, q *query) {
+	all := [nComp]bool{true, true, true, true, true}
+	parts := pr.parts
+	parts[cNoise] += m.posVar()
+	m.cal.note(found-pr.Pos, &parts, all)
+	if q == nil || m.fit.k == 0 || m.o.prior == nil {
+		return
+	}
+	var other outcome
+	var own int
+	if pr.Source == SourceMap {
+		ap, ok := m.predictAnchored(q, m.nearest(q.u*(1+q.eps)))
+		if !ok {
+			return
+		}
+		other, own = ap, cPrior
+	} else {
+		other, own = m.predictMap(q), cShape
+	}
+	var use [nComp]bool
+	use[own] = true
+	parts = other.parts
+	parts[cNoise] += m.posVar()
+	m.cal.note(found-other.Pos, &parts, use)
+}
 
 // nearest returns the index of the entry nearest x; there must be one.
 func (m *Map) nearest(x float64) int {
@@ -539,24 +719,43 @@ func (m *Map) predictAnchored(q *query, j int) (outcome, bool) {
 	}
 	h := -q.fHz / 2 * pp.Slope
 	pos := pp.Pos + (float64(e.pt.Pos) - pa.Pos) + h*(q.eps-e.eps) + (q.off - e.off)
-	// The prior's errors at two frequencies are alike when the frequencies are close, so the
-	// anchor cancels them there and not far away.
-	dl := math.Log(q.fHz / e.fHz)
-	rho := math.Exp(-dl * dl / m.o.priorReachSq2)
-	vp := pp.Sigma*pp.Sigma + pa.Sigma*pa.Sigma - 2*rho*pp.Sigma*pa.Sigma
-	dv, g := m.entryDrift(e, h, q)
-	v := math.Max(vp, 0) + m.o.posVar + dv
+	vp := m.cal.scale(cPrior) * m.priorDiffVar(&pp, &pa, q.fHz, e.fHz)
+	dv, g, de, do := m.entryDrift(e, h, q)
+	pv := m.posVar()
 	qv := pp.Q
 	if e.pt.Q > 0 {
 		qv = e.pt.Q
 	}
-	return outcome{
-		Prediction: Prediction{Pos: pos, Sigma: math.Sqrt(v), Slope: pp.Slope, Q: qv, Source: SourceAnchored},
+	o := outcome{
+		Prediction: Prediction{Pos: pos, Slope: pp.Slope, Q: qv, Source: SourceAnchored},
 		h:          h,
 		gain:       g,
 		nb:         [2]int{j, -1},
 		w:          [2]float64{1, 0},
-	}, true
+	}
+	o.parts[cPrior], o.parts[cNoise] = vp, pv
+	m.driftParts(&o, q, dv, de, do)
+	return o, true
+}
+
+// driftParts completes o for q from its drift variance d in the filter's model: it splits d into
+// the shares of ε and of the offset, given what each would give alone (de, do; the cross term,
+// small as the two wander independently, is shared), scales each as the map's errors have
+// shown, and sets Sigma and vf from every part.
+func (m *Map) driftParts(o *outcome, q *query, d, de, do float64) {
+	x := (d - de - do) / 2
+	pe, po := math.Max(de+x, 0), math.Max(do+x, 0)
+	if t := pe + po; t > 0 {
+		pe, po = pe*d/t, po*d/t
+	}
+	o.parts[cEps] = m.cal.scaleAt(cEps, q.a) * pe
+	o.parts[cOff] = m.cal.scaleAt(cOff, q.a) * po
+	var v float64
+	for _, p := range o.parts {
+		v += p
+	}
+	o.Sigma = math.Sqrt(v)
+	o.vf = v - o.parts[cEps] - o.parts[cOff] + d
 }
 
 // slopeSpan is the step of the central difference that gives the map's slope, as a share of
@@ -568,16 +767,15 @@ const slopeSpan = 0.25
 // predictMap predicts from the learned points; the fit must exist.
 func (m *Map) predictMap(q *query) outcome {
 	xq := q.u * (1 + q.eps)
-	mean, v, nb := m.meanAt(xq)
+	mean, vs, vn, nb := m.meanAt(xq)
 	d := math.Min(slopeSpan*m.fit.reach, 0.25*xq)
 	dpdx := (m.mean(xq+d) - m.mean(xq-d)) / (2 * d)
 	dpdu := dpdx * (1 + q.eps)
 	h := q.u * dpdu
-	dv, g := m.driftVar(&nb, h, q)
-	return outcome{
+	dv, g, de, do := m.driftVar(&nb, h, q)
+	o := outcome{
 		Prediction: Prediction{
 			Pos:    mean + q.off,
-			Sigma:  math.Sqrt(v + dv),
 			Slope:  dpdu * (-2 * q.u / q.fHz),
 			Q:      m.qAt(&nb),
 			Source: SourceMap,
@@ -587,22 +785,31 @@ func (m *Map) predictMap(q *query) outcome {
 		nb:   [2]int{nb.l, nb.r},
 		w:    [2]float64{nb.wl, nb.wr},
 	}
+	o.parts[cShape], o.parts[cNoise] = vs, vn
+	m.driftParts(&o, q, dv, de, do)
+	return o
 }
 
 // driftVar is the variance, in steps², that the drift adds to a prediction with sensitivity h,
 // and the covariance of the drift estimate's error with it: near a point, from the drift since
-// it was learned; far from any, the same for an average point.
-func (m *Map) driftVar(nb *nbrs, h float64, q *query) (float64, vec) {
-	hq := obs(h, q.dT)
-	fq := decayT(q.a, hq)
-	ph := q.p.mul(hq)
+// it was learned; far from any, the same for an average point. de and do are what the errors of
+// ε and of the offset alone would give.
+func (m *Map) driftVar(nb *nbrs, h float64, q *query) (d float64, g vec, de, do float64) {
 	wf := 1 - nb.wl - nb.wr
-	far := q.p.quad(hq) + m.fit.pbar.quad(hq) - 2*m.fit.cbar.bilin(fq, hq)
-	d := wf * math.Max(far, 0)
-	var g vec
-	fc := decay(q.a, m.fit.cbar.mul(hq))
-	for i := range ns {
-		g[i] = wf * (ph[i] - fc[i])
+	if wf > 0 {
+		for part, out := range [3]*float64{&d, &de, &do} {
+			hq := obsPart(h, q.dT, part)
+			fq := decayT(q.a, hq)
+			far := q.p.quad(hq) + m.fit.pbar.quad(hq) - 2*m.fit.cbar.bilin(fq, hq)
+			*out = wf * math.Max(far, 0)
+			if part == 0 {
+				ph := q.p.mul(hq)
+				fc := decay(q.a, m.fit.cbar.mul(hq))
+				for i := range ns {
+					g[i] = wf * (ph[i] - fc[i])
+				}
+			}
+		}
 	}
 	for _, k := range [2]struct {
 		i int
@@ -611,30 +818,47 @@ func (m *Map) driftVar(nb *nbrs, h float64, q *query) (float64, vec) {
 		if k.i < 0 || k.w <= 0 {
 			continue
 		}
-		dk, gk := m.entryDrift(&m.ents[k.i], h, q)
+		dk, gk, dek, dok := m.entryDrift(&m.ents[k.i], h, q)
 		d += k.w * dk
+		de += k.w * dek
+		do += k.w * dok
 		for i := range ns {
 			g[i] += k.w * gk[i]
 		}
 	}
-	return math.Max(d, 0), g
+	return math.Max(d, 0), g, de, do
+}
+
+// obsPart is the observation vector of a position with sensitivity h at temperature difference
+// dT (part 0), or its part for ε alone (1) or the offset alone (2).
+func obsPart(h, dT float64, part int) vec {
+	switch part {
+	case 1:
+		return vec{sEps: h, sKappa: h * dT}
+	case 2:
+		return vec{sOff: 1}
+	}
+	return obs(h, dT)
 }
 
 // entryDrift is the variance of the drift's error, in steps², of a prediction with sensitivity
 // h made from entry e alone (the estimate now against the one e was placed with), and the
-// covariance of the estimate's error now with it.
-func (m *Map) entryDrift(e *entry, h float64, q *query) (float64, vec) {
-	hq := obs(h, q.dT)
-	hk := obs(h, e.dT)
-	// The cross-covariance is carried to the query's time through the decay, F·C.
-	v := math.Max(q.p.quad(hq)+e.p.quad(hk)-2*e.c.bilin(decayT(q.a, hq), hk), 0)
-	ph := q.p.mul(hq)
-	fc := decay(q.a, e.c.mul(hk))
-	var g vec
-	for i := range ns {
-		g[i] = ph[i] - fc[i]
+// covariance of the estimate's error now with it; de and do as in driftVar.
+func (m *Map) entryDrift(e *entry, h float64, q *query) (v float64, g vec, de, do float64) {
+	for part, out := range [3]*float64{&v, &de, &do} {
+		hq := obsPart(h, q.dT, part)
+		hk := obsPart(h, e.dT, part)
+		// The cross-covariance is carried to the query's time through the decay, F·C.
+		*out = math.Max(q.p.quad(hq)+e.p.quad(hk)-2*e.c.bilin(decayT(q.a, hq), hk), 0)
+		if part == 0 {
+			ph := q.p.mul(hq)
+			fc := decay(q.a, e.c.mul(hk))
+			for i := range ns {
+				g[i] = ph[i] - fc[i]
+			}
+		}
 	}
-	return v, g
+	return v, g, de, do
 }
 
 // qAt interpolates the learned Q among the neighbours that know one.

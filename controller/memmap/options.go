@@ -12,10 +12,14 @@ import (
 // Options tune a Map. The zero value of every field selects the default given beside it. Where
 // zero would be a meaningful setting of its own ("no forgetting", "no offset drift"), a negative
 // value selects it.
+//
+// PosNoise, Bend with Reach, DriftMax, OffsetMax and the Prior's Sigma are where the map's σ
+// starts: as tunes come in, the map scales each by what its own errors show (see "An honest σ"
+// in the package documentation), so a guess on the safe side costs only the first few tunes.
 type Options struct {
 	// Prior predicts from a physics model while the map has fewer than two points, and wherever
-	// the prior, anchored to the nearest learned point, is more certain than the map. nil: none,
-	// and the map predicts nothing until it has two points.
+	// the prior, anchored to the nearest learned point, has been more right than the map. nil:
+	// none, and the map predicts nothing until it has two points.
 	Prior Prior
 
 	// MaxPoints bounds the map. When it is full, the point in the most densely learned stretch
@@ -36,10 +40,12 @@ type Options struct {
 	Bend float64
 	// Reach is how far, in steps, a local deviation from the global model carries to the
 	// neighbouring positions (the correlation length). Default: a tenth of the
-	// position-equivalent of the largest capacitance the map spans.
+	// position-equivalent of the largest capacitance the map spans. The map lengthens it, up to
+	// twice, where its errors show the law to be smoother than that.
 	Reach float64
 	// QuadMinPoints is how many points the map needs, spread over a frequency ratio of at least
-	// √2, before the global model gets its quadratic term. Default 6, at least 4; negative: the
+	// √2, before the global model gets its quadratic term; points close enough to share one local
+	// deviation (within Reach) count about once together. Default 6, at least 4; negative: the
 	// global model stays a straight line.
 	QuadMinPoints int
 
