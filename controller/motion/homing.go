@@ -78,18 +78,24 @@ func (a *Axis) home(ctx context.Context) error {
 	a.mu.Lock()
 	past := max(abs(a.pos-edge), abs(a.pos-a.clearAt))
 	a.mu.Unlock()
-	released, rel, err := a.leg(ctx, away, past+2*h.BackOff, h.FastSpeed, a.homeReleased)
+	released, _, err := a.leg(ctx, away, past+2*h.BackOff, h.FastSpeed, a.homeReleased)
 	if err != nil {
 		return err
 	}
 	if !released {
 		return fmt.Errorf("%w: active through %d steps %s", ErrSwitchStuck, past+2*h.BackOff, away)
 	}
+	// The switch released somewhere after the last poll that still found it active: a late
+	// poll finds the release late, so the re-approach is measured from that last poll.
+	a.mu.Lock()
+	stillActive := a.clearAt
+	a.mu.Unlock()
 	if _, _, err := a.leg(ctx, away, h.BackOff, h.FastSpeed, nil); err != nil {
 		return err
 	}
-	// Back to the release point and then up to 2·BackOff of switch hysteresis.
-	span := abs(a.Position()-rel) + 2*h.BackOff
+	// Back to where the switch was last seen active and then up to 2·BackOff of switch
+	// hysteresis.
+	span := abs(a.Position()-stillActive) + 2*h.BackOff
 	hit, edge, err = a.leg(ctx, h.Dir, span, h.SlowSpeed, a.homeActive)
 	if err != nil {
 		return err
