@@ -23,6 +23,7 @@ type RF struct {
 	w     float64 // ω
 	xl    float64 // ωL
 	r     float64 // total series resistance
+	par   float64 // capacitance across the capacitor besides its own
 	ratio float64 // feed resistance ratio
 }
 
@@ -59,13 +60,14 @@ func (e *RF) prepare(f, t float64) {
 	e.w = 2 * math.Pi * f
 	e.xl = el.Reactance
 	e.r = el.RTotal
+	e.par = el.Parallel
 	e.ratio = e.feed.Ratio(f)
 }
 
 // Detuning is y = X/R at frequency f (Hz), shaft position turns and temperature t (°C).
 func (e *RF) Detuning(f, turns, t float64) float64 {
 	e.prepare(f, t)
-	c := e.cap.At(turns, t) + e.model.Stray
+	c := e.cap.At(turns, t) + e.par
 	return (e.xl - 1/(e.w*c)) / e.r
 }
 

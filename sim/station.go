@@ -63,8 +63,12 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	if h := d.Home; h != nil {
 		mo.Home = &mech.SwitchOptions{At: h.AtTurns * st.perTurn, Side: motion.Down, Hysteresis: h.HysteresisSteps}
 	}
-	// Start somewhere in the first third of the travel: a loop is rarely left at an end.
-	mo.Start = int64(st.perTurn * capOpts.Span * (0.1 + 0.2*float64(s.Simulator.Seed%97)/97))
+	// Start low in the travel, 2 to 5 % of it, clear of the ends and below the presets' dips.
+	// A freely turning capacitor whose position is not known is re-referenced by a search over
+	// one span from where the shaft stands, which finds only the dips above it: a start higher
+	// up would hide the low-capacitance dips (the top of 80 m on the demo loop) from the first
+	// search of a daemon that has never run.
+	mo.Start = int64(st.perTurn * capOpts.Span * (0.02 + 0.03*float64(s.Simulator.Seed%97)/97))
 	if st.Mech, err = mech.New(clk, mo); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}

@@ -61,7 +61,7 @@ func runCurve(args []string, stdout, stderr io.Writer) error {
 		xLabel = "frequency, kHz"
 	case "step":
 		// The loaded bandwidth in capacitance: ΔC/C = 2Δf/f, turned into motor steps.
-		c := el.Capacitance + s.Model().Stray
+		c := el.Capacitance + el.Parallel
 		dc := 2 * c * el.Bandwidth / f0
 		span := math.Max(*width*dc/rf.Capacitor().Slope(turns)*perTurn, 10)
 		centre := turns * perTurn

@@ -37,10 +37,15 @@ type designRow struct {
 	CurrentA     *float64 `json:"current_a"`          // rms
 	InRange      bool     `json:"capacitor_in_range"`
 	SmallLoop    bool     `json:"small_loop_valid"`
+	// SelfCapacitanceF is the winding's own capacitance across the capacitor (the leads'
+	// stray is besides it).
+	SelfCapacitanceF float64 `json:"self_capacitance_f"`
 	// CircumferenceWL is the turn circumference in wavelengths.
 	CircumferenceWL float64 `json:"circumference_wavelengths"`
 	Covered         bool    `json:"covered"`
 	Reason          string  `json:"reason,omitempty"`
+	// Note qualifies a covered row's figures where the small-loop model is less than exact.
+	Note string `json:"note,omitempty"`
 
 	e loop.Electrical // the model's figures, for the text report of a covered row
 }
@@ -52,6 +57,13 @@ const (
 	smallLoopWavelengths  = 0.1
 	modelLimitWavelengths = 0.25
 )
+
+// radiationNoteWavelengths is where the report starts saying that the small-loop radiation
+// resistance, R = 20π²·(C/λ)⁴·N², reads low, and the efficiency with it: the current along a
+// loop of a twentieth of a wavelength and more is no longer quite uniform. A full-wave thin-wire
+// method-of-moments solution of one- and two-turn loops put the formula about 1 % low at λ/20,
+// 3 % at 0.075 λ and 5–6 % at λ/10 (our own computation; no published source at hand).
+const radiationNoteWavelengths = 0.05
 
 // frequencyList is a flag of comma-separated frequencies (numFlags.Frequencies).
 type frequencyList struct {
@@ -97,7 +109,7 @@ func geometryFlagKeys() []geometryFlag {
 		{"diameter", "loop.diameter_m", "turn diameter"},
 		{"conductor", "loop.conductor_m", "conductor outside diameter"},
 		{"spacing", "loop.spacing_m", "centre-to-centre turn spacing"},
-		{"stray", "loop.stray_pf", "stray capacitance across the capacitor"},
+		{"stray", "loop.stray_pf", "stray capacitance across the capacitor besides the winding's own: leads, fittings"},
 		{"esr", "loop.extra_loss_ohm", "extra series loss (capacitor ESR, joints; 0 leaves conductor and radiation loss only)"},
 		{"cmin", "capacitor.min_pf", "tuning capacitor minimum"},
 		{"cmax", "capacitor.max_pf", "tuning capacitor maximum"},
@@ -272,6 +284,7 @@ func runDesign(args []string, stdout, stderr io.Writer) error {
 // covered, with the reason and only the figures that still mean something.
 func rowOf(bandName string, e loop.Electrical, m loop.Model, cmin, cmax float64) designRow {
 	r := designRow{Band: bandName, FrequencyHz: e.Frequency, InductanceH: e.Inductance, e: e}
+	r.SelfCapacitanceF = e.Parallel - m.Stray
 	r.CircumferenceWL = math.Pi * m.Geometry.Diameter * e.Frequency / loop.LightSpeed
 	r.SmallLoop = r.CircumferenceWL < smallLoopWavelengths
 	c := e.Capacitance
@@ -282,8 +295,12 @@ func rowOf(bandName string, e loop.Electrical, m loop.Model, cmin, cmax float64)
 		r.Reason = fmt.Sprintf("the loop is too large for the small-loop model here (turn circumference %.2f λ, above λ/4)", r.CircumferenceWL)
 	case !allFinite(figures):
 		r.Reason = "the model gives no finite figures here"
+	case c+e.Parallel < r.SelfCapacitanceF:
+		r.Reason = fmt.Sprintf("needs %s pF in all, less than the winding's own %s pF: the loop is past its self-resonance",
+			fmtPF((c+e.Parallel)*1e12), fmtPF(r.SelfCapacitanceF*1e12))
 	case c < 0:
-		r.Reason = fmt.Sprintf("needs %s pF in all, less than the %s pF stray alone", fmtPF((c+m.Stray)*1e12), fmtPF(m.Stray*1e12))
+		r.Reason = fmt.Sprintf("needs %s pF in all, less than the %s pF across the capacitor already (the winding's own and the stray)",
+			fmtPF((c+e.Parallel)*1e12), fmtPF(e.Parallel*1e12))
 	case c < cmin:
 		r.CapacitanceF = &c
 		r.Reason = fmt.Sprintf("needs %s pF, below the capacitor's %s pF minimum", fmtPF(c*1e12), fmtPF(cmin*1e12))
@@ -295,6 +312,12 @@ func rowOf(bandName string, e loop.Electrical, m loop.Model, cmin, cmax float64)
 		f := append([]float64(nil), figures...) // the row's own copies
 		r.CapacitanceF, r.QUnloaded, r.QLoaded, r.BandwidthHz, r.RRadOhm, r.RLossOhm = &f[0], &f[1], &f[2], &f[3], &f[4], &f[5]
 		r.Efficiency, r.EfficiencyDB, r.CapVoltageV, r.CapVoltagePk, r.CurrentA = &f[6], &f[7], &f[8], &f[9], &f[10]
+		switch {
+		case !r.SmallLoop:
+			r.Note = fmt.Sprintf("loop not small against λ (turn circumference %.2f λ): figures approximate", r.CircumferenceWL)
+		case r.CircumferenceWL >= radiationNoteWavelengths:
+			r.Note = fmt.Sprintf("turn circumference %.3f λ: Rrad and eff. read a few %% low", r.CircumferenceWL)
+		}
 	}
 	return r
 }
@@ -335,8 +358,10 @@ func printDesign(w io.Writer, m loop.Model, cmin, cmax float64, rows []designRow
 		fmt.Fprintf(w, ", %.0f mm apart", g.Spacing*1000)
 	}
 	fmt.Fprintf(w, " (%.2f m of conductor)\n", g.ConductorLength())
-	fmt.Fprintf(w, "Inductance %.3f µH at %.0f °C; capacitor %.0f–%.0f pF plus %.0f pF stray; %g W\n\n",
-		m.InductanceAt(temp)*1e6, temp, cmin*1e12, cmax*1e12, m.Stray*1e12, power)
+	l, parallel := m.InductanceAt(temp), m.ParallelAt(temp)
+	fmt.Fprintf(w, "Inductance %.3f µH and the winding's own capacitance %.1f pF at %.0f °C: self-resonant near %.1f MHz with the stray\n",
+		l*1e6, (parallel-m.Stray)*1e12, temp, 1/(2*math.Pi*math.Sqrt(l*parallel))/1e6)
+	fmt.Fprintf(w, "Capacitor %.0f–%.0f pF plus %.0f pF stray (leads, fittings); %g W\n\n", cmin*1e12, cmax*1e12, m.Stray*1e12, power)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintln(tw, "band\tMHz\tC pF\tQu\tQl\tBW Hz\tRrad mΩ\tRloss mΩ\teff %\teff dB\tVcap rms\tVcap pk\tI A\t")
 	for _, r := range rows {
@@ -349,10 +374,7 @@ func printDesign(w io.Writer, m loop.Model, cmin, cmax float64, rows []designRow
 			fmt.Fprintf(tw, "%s\t%.4f\t%s\t%s not covered: %s\n", r.Band, r.FrequencyHz/1e6, c, strings.Repeat("–\t", 10), r.Reason)
 			continue
 		}
-		e, note := r.e, ""
-		if !r.SmallLoop {
-			note = fmt.Sprintf("loop not small against λ (turn circumference %.2f λ): figures approximate", r.CircumferenceWL)
-		}
+		e, note := r.e, r.Note
 		fmt.Fprintf(tw, "%s\t%.4f\t%.1f\t%.0f\t%.0f\t%.0f\t%.2f\t%.1f\t%.1f\t%.1f\t%.0f\t%.0f\t%.1f\t %s\n",
 			r.Band, r.FrequencyHz/1e6, e.Capacitance*1e12, e.QUnloaded, e.QLoaded, e.Bandwidth,
 			e.RRad*1e3, e.RLoss*1e3, e.Efficiency*100, e.EfficiencyDB(), e.VoltageRMS, e.VoltagePeak, e.Current, note)
@@ -362,13 +384,14 @@ func printDesign(w io.Writer, m loop.Model, cmin, cmax float64, rows []designRow
 		fmt.Fprintln(w)
 	}
 	for _, b := range bands {
-		fmt.Fprintf(w, "%-5s %s\n", b.Name, coverage(b, rows, cmin, cmax, m.Stray))
+		fmt.Fprintf(w, "%-5s %s\n", b.Name, coverage(b, rows, cmin, cmax, parallel))
 	}
 	fmt.Fprintln(w, "\nVcap is the circuit-law capacitor voltage, V = X_L·√(P/R); forms using the loaded Q give √2 less.")
 }
 
-// coverage says whether the capacitor covers band b, from the rows of the band.
-func coverage(b band.Band, rows []designRow, cmin, cmax, stray float64) string {
+// coverage says whether the capacitor covers band b, from the rows of the band; parallel is the
+// capacitance across the capacitor besides its own (the winding's and the stray).
+func coverage(b band.Band, rows []designRow, cmin, cmax, parallel float64) string {
 	lo, hi := math.Inf(1), math.Inf(-1)
 	n, large := 0, []designRow(nil)
 	for _, r := range rows {
@@ -390,16 +413,17 @@ func coverage(b band.Band, rows []designRow, cmin, cmax, stray float64) string {
 		return fmt.Sprintf("partly covered: the loop is too large for the small-loop model from %.4f MHz (turn circumference %.2f λ, above λ/4)",
 			large[0].FrequencyHz/1e6, large[0].CircumferenceWL)
 	}
-	// Below the stray alone the tuning capacitance "needed" is negative: say the totals instead.
+	// Below what is across the capacitor already the tuning capacitance "needed" is negative:
+	// say the totals instead.
 	need := fmt.Sprintf("needs %.1f–%.1f pF", lo*1e12, hi*1e12)
 	if lo < 0 {
-		need = fmt.Sprintf("needs %.1f–%.1f pF in all, stray included", (lo+stray)*1e12, (hi+stray)*1e12)
+		need = fmt.Sprintf("needs %.1f–%.1f pF in all, the winding's own and the stray included", (lo+parallel)*1e12, (hi+parallel)*1e12)
 	}
 	switch {
 	case lo >= cmin && hi <= cmax:
 		return fmt.Sprintf("covered: %s", need)
 	case hi < cmin && lo < 0:
-		return fmt.Sprintf("NOT covered: %s, below the capacitor's %.1f pF minimum plus %.0f pF stray", need, cmin*1e12, stray*1e12)
+		return fmt.Sprintf("NOT covered: %s, below the capacitor's %.1f pF minimum plus the %.1f pF across it already", need, cmin*1e12, parallel*1e12)
 	case hi < cmin:
 		return fmt.Sprintf("NOT covered: %s, below the capacitor's %.1f pF minimum", need, cmin*1e12)
 	case lo > cmax:

@@ -41,7 +41,9 @@ type Loop struct {
 	CapacitorQ   float64 `toml:"capacitor_q"`
 	GroundOhm    float64 `toml:"ground_loss_ohm"`
 	Proximity    float64 `toml:"proximity"`
-	StrayPF      float64 `toml:"stray_pf"`
+	// StrayPF is the capacitance across the capacitor besides the winding's own (which the
+	// model computes from the geometry): leads, the capacitor's frame and fittings.
+	StrayPF float64 `toml:"stray_pf"`
 }
 
 // Feed is the coupling-loop match.
@@ -125,6 +127,11 @@ type Site struct {
 // The builder's first guess at how far a loop is from its drawing (common practice: a few
 // percent on the inductance, a few pF on the strays).
 const (
+	// defaultLeadsPF is the demo station's capacitance across the capacitor besides the
+	// winding's own: the straps from the loop's ends to the capacitor and its frame (guess: a
+	// few pF). The winding itself adds about 26 pF (loop.Geometry.SelfCapacitance), 29 pF in
+	// all.
+	defaultLeadsPF = 3
 	defaultCapacitanceTolerance = 0.03
 	defaultStrayTolerancePF     = 3
 )
@@ -137,7 +144,7 @@ const (
 func DefaultDescription() Description {
 	return Description{
 		Name: "demo: two-turn 2.3 m loop, 10–500 pF air variable",
-		Loop: Loop{Turns: 2, DiameterM: 2.3, ConductorM: 0.022, SpacingM: 0.10, ExtraLossOhm: 0.015, StrayPF: 10},
+		Loop: Loop{Turns: 2, DiameterM: 2.3, ConductorM: 0.022, SpacingM: 0.10, ExtraLossOhm: 0.015, StrayPF: defaultLeadsPF},
 		Feed: Feed{DesignHz: 2.6e6, OctaveSWR: 1.4},
 		Capacitor: Capacitor{MinPF: 10, MaxPF: 500, Travel: capacitor.Free.String(), SpanTurns: 0.5,
 			TempPPMPerK: 30, EndMarginPct: 0.5},
@@ -200,19 +207,22 @@ func Load(path string) (Description, error) {
 	return d, nil
 }
 
-// Model is the loop's electrical model.
+// Model is the loop's electrical model: the winding's own capacitance from its geometry
+// (loop.Geometry.SelfCapacitance), and stray_pf besides it for the leads and fittings.
 func (d Description) Model() loop.Model {
 	c := loop.Copper
 	if d.Loop.Resistivity > 0 {
 		c = loop.Conductor{Resistivity: d.Loop.Resistivity, TempCoeff: d.Loop.TempCoeff, Expansion: d.Loop.Expansion}
 	}
+	g := loop.Geometry{Turns: d.Loop.Turns, Diameter: d.Loop.DiameterM,
+		ConductorDiameter: d.Loop.ConductorM, Spacing: d.Loop.SpacingM}
 	return loop.Model{
-		Geometry: loop.Geometry{Turns: d.Loop.Turns, Diameter: d.Loop.DiameterM,
-			ConductorDiameter: d.Loop.ConductorM, Spacing: d.Loop.SpacingM},
+		Geometry:  g,
 		Conductor: c,
 		Losses: loop.Losses{ExtraOhm: d.Loop.ExtraLossOhm, CapacitorQ: d.Loop.CapacitorQ,
 			GroundOhm: d.Loop.GroundOhm, Proximity: d.Loop.Proximity},
-		Stray: d.Loop.StrayPF * 1e-12,
+		Stray:           d.Loop.StrayPF * 1e-12,
+		SelfCapacitance: g.SelfCapacitance(),
 	}
 }
 

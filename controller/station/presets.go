@@ -39,13 +39,22 @@ func Preset(name string) (Description, error) {
 	return Description{}, fmt.Errorf("station preset %q: want one of %s", name, strings.Join(PresetNames(), ", "))
 }
 
+// The presets' leads and fittings across the capacitor, besides the winding's own capacitance
+// (guesses: a few pF). A vacuum variable sits in the gap on short straps; a butterfly's two
+// stators are strapped to the loop's ends. The windings add about 7 pF (the one-turn 1.6 m
+// ring) and 16 pF (the three-turn 1 m loop) of their own (loop.Geometry.SelfCapacitance).
+const (
+	vacuumLeadsPF    = 2
+	butterflyLeadsPF = 3
+)
+
 // vacuumDescription is a single-turn 1.6 m loop on a 5–500 pF vacuum variable with hard end
 // stops (12 turns of the shaft), driven through a 3:1 belt, with a home switch near minimum
 // capacitance: a loop for 80 m to 30 m (common practice; the figures are typical, not measured).
 func vacuumDescription() Description {
 	d := DefaultDescription()
 	d.Name = "one-turn 1.6 m loop, 5–500 pF vacuum variable"
-	d.Loop = Loop{Turns: 1, DiameterM: 1.6, ConductorM: 0.028, SpacingM: d.Loop.SpacingM, ExtraLossOhm: 0.01, StrayPF: 6}
+	d.Loop = Loop{Turns: 1, DiameterM: 1.6, ConductorM: 0.028, SpacingM: d.Loop.SpacingM, ExtraLossOhm: 0.01, StrayPF: vacuumLeadsPF}
 	d.Feed = Feed{DesignHz: 7e6, OctaveSWR: 1.3}
 	d.Capacitor = Capacitor{MinPF: 5, MaxPF: 500, Travel: capacitor.Stops.String(), SpanTurns: 12, TempPPMPerK: 20, EndMarginPct: 2}
 	d.Drive = Drive{StepsPerRev: 200, Microsteps: 8, GearRatio: 3, BacklashSteps: 6,
@@ -60,7 +69,7 @@ func vacuumDescription() Description {
 func butterflyDescription() Description {
 	d := DefaultDescription()
 	d.Name = "three-turn 1 m loop, butterfly capacitor, diode detectors"
-	d.Loop = Loop{Turns: 3, DiameterM: 1.0, ConductorM: 0.015, SpacingM: 0.05, ExtraLossOhm: 0.02, StrayPF: 12}
+	d.Loop = Loop{Turns: 3, DiameterM: 1.0, ConductorM: 0.015, SpacingM: 0.05, ExtraLossOhm: 0.02, StrayPF: butterflyLeadsPF}
 	d.Feed = Feed{DesignHz: 2.5e6, OctaveSWR: 1.5}
 	d.Capacitor = Capacitor{MinPF: 20, MaxPF: 500, Travel: capacitor.Free.String(), SpanTurns: 0.25, TempPPMPerK: 40, EndMarginPct: 0.5}
 	d.Drive = Drive{StepsPerRev: 200, Microsteps: 16, GearRatio: 100, BacklashSteps: 90,

@@ -64,7 +64,7 @@ func (p *Prior) Predict(f physic.Frequency) (memmap.Prediction, bool) {
 			turns = span + (el.Capacitance-hi)/p.cap.Slope(span)
 		}
 	}
-	cTotal := el.Capacitance + p.model.Stray
+	cTotal := el.Capacitance + el.Parallel
 	slopeC := p.cap.Slope(math.Min(math.Max(turns, 0), p.cap.Options().Span)) // F per turn
 	// C ∝ 1/f²: dC/df = −2C/f.
 	stepsPerFarad := p.stepsPerTurn / slopeC

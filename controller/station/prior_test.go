@@ -45,3 +45,34 @@ func TestPriorSlopeMatchesFiniteDifference(t *testing.T) {
 		t.Errorf("1 MHz is beyond the capacitor's range; the prior says %+v, %v (travel ends at %.0f)", q, ok, offset+span)
 	}
 }
+
+// The prior puts the dip where the capacitor makes up what the loop needs beyond the winding's
+// own capacitance and the leads: f = 1/(2π·√(L·C)) (the LC resonance, any circuits textbook)
+// with C the capacitor's, the winding's and the leads'.
+func TestPriorCountsTheWindingsOwnCapacitance(t *testing.T) {
+	d := DefaultDescription()
+	p, err := d.Prior(20)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := d.Model()
+	if m.SelfCapacitance < 20e-12 || m.SelfCapacitance > 30e-12 {
+		t.Fatalf("the demo's two turns hold %.1f pF of their own, want the 26 pF or so of two 2.3 m turns 10 cm apart", m.SelfCapacitance*1e12)
+	}
+	c, err := d.CapacitorModel()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range []float64{1.85e6, 3.75e6} {
+		pr, ok := p.Predict(physic.Frequency(f) * physic.Hertz)
+		if !ok {
+			t.Fatalf("no prediction at %g Hz", f)
+		}
+		turns := (pr.Pos - d.ShaftLag()) / d.StepsPerTurn()
+		total := c.At(turns, 20) + m.SelfCapacitance + d.Loop.StrayPF*1e-12
+		got := 1 / (2 * math.Pi * math.Sqrt(m.InductanceAt(20)*total))
+		if math.Abs(got-f) > 1e-6*f {
+			t.Errorf("%g Hz: the predicted position resonates at %.1f Hz", f, got)
+		}
+	}
+}

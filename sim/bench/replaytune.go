@@ -33,11 +33,14 @@ type ReplayRig struct {
 	Best motion.Steps
 	// Width is the dip's half-width in steps the controller is told to expect.
 	Width float64
+	// Noise is the recording's reading noise, which every replayed reading carries.
+	Noise replay.Noise
 }
 
 // NewReplayRig builds the controller on a recording. The memory map is given a prediction
 // offset steps away from Best, with a σ of sigma steps, as if it had learned the loop
-// imperfectly; the motor starts well below the dip.
+// imperfectly; the motor starts well below the dip. Every reading carries noise of the size the
+// recording's own scatter shows (replay.EstimateNoise), drawn from replayNoiseSeed.
 func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float64, obs tune.Observer) (*ReplayRig, error) {
 	freq, best, lo, hi, err := survey(samples)
 	if err != nil {
@@ -65,7 +68,8 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 	conv := time.Duration(metaFloat(h, "conversion_us", 1000)) * time.Microsecond
 	clk := vclock.New(h.Start)
 	start := best - motion.Steps(8*width) - 2*backlash
-	rp, err := replay.New(clk, samples, replay.Options{Freq: freq, Conversion: 2 * conv, Position: start, HoldEnds: true, Name: "recording"})
+	rp, err := replay.New(clk, samples, replay.Options{Freq: freq, Conversion: 2 * conv, Position: start, HoldEnds: true,
+		Name: "recording", Seed: replayNoiseSeed})
 	if err != nil {
 		return nil, err
 	}
@@ -92,8 +96,12 @@ func NewReplayRig(h record.Header, samples []record.Sample, offset, sigma float6
 	}
 	ax, mm, tn := a.Axis, a.Map, a.Tuner
 	ax.Reference(start)
-	return &ReplayRig{Replay: rp, Clock: clk, Axis: ax, Map: mm, Tuner: tn, Freq: freq, Best: best, Width: width}, nil
+	return &ReplayRig{Replay: rp, Clock: clk, Axis: ax, Map: mm, Tuner: tn, Freq: freq, Best: best, Width: width, Noise: rp.Noise()}, nil
 }
+
+// replayNoiseSeed seeds the replayed readings' noise: a fixed seed, so that a replay, like the
+// benchmark, gives the same run every time.
+const replayNoiseSeed = 1
 
 // Tune runs the controller's tune on the recording.
 func (r *ReplayRig) Tune(ctx context.Context) tune.Result {

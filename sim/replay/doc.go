@@ -21,8 +21,18 @@
 // axis to Options.Position). Enable the drive before moving, as with real hardware, and Halt it
 // on the way out.
 //
-// A replay is only as good as its recording: it adds no noise, it does not model the deadband
-// itself (a reversal switches to the other direction's samples at the first pulse, whereas a
-// real shaft stands still until the play is taken up), and it knows nothing between the
-// recorded steps beyond a straight line.
+// Every reading carries fresh noise, seeded (Options.Seed), of the size the recording's own
+// scatter shows: EstimateNoise measures it per channel, from samples repeated at a step and
+// from each step's departure from its neighbours along a sweep, as a relative scatter (σ of
+// ln P); Replay.Noise tells the estimate. Without it a replay would answer the same reading
+// every time at a position, and a controller would measure a fraction of the noise the
+// recording was made with and trust its readings too much. Options.Silent replays the averaged
+// curve as it is.
+//
+// A replay is only as good as its recording: its noise is relative (as a log detector's,
+// constant in dB), so behind a square-law detector, whose noise is constant in volts and grows
+// relative to a small reading, readings near the dip replay smoother than they were recorded;
+// it does not model the deadband itself (a reversal switches to the other direction's samples
+// at the first pulse, whereas a real shaft stands still until the play is taken up), and it
+// knows nothing between the recorded steps beyond a straight line.
 package replay

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"maps"
 	"math"
+	"math/rand/v2"
 	"slices"
 	"sort"
 	"sync"
@@ -60,6 +61,13 @@ type Options struct {
 	HoldEnds bool
 	// Name is what String returns. Default "replay".
 	Name string
+	// Silent replays the recording's averaged readings as they are: every reading at a position
+	// answers the same. By default each reading carries fresh noise of the size the recording's
+	// own scatter shows (Noise), drawn from Seed, so that a controller measures the noise the
+	// recording was made with rather than none.
+	Silent bool
+	// Seed seeds the replayed noise: the same seed, the same readings.
+	Seed uint64
 }
 
 // point is the recording's average at one step in one direction.
@@ -80,10 +88,13 @@ type Replay struct {
 	hold  bool
 	play  motion.Steps
 	curve [2][]point // by dirIndex
+	noise Noise      // the recording's, as estimated
+	quiet bool       // Options.Silent
 
 	mu      sync.Mutex
 	enabled bool
 	carrier bool
+	rng     *rand.Rand
 	base    motion.Steps     // position before the current move
 	baseDir motion.Direction // direction of the last pulse before the current move
 	move    motion.Move      // the current or last move; zero Profile before the first
@@ -107,6 +118,8 @@ func New(clk clock.Clock, samples []record.Sample, opts Options) (*Replay, error
 		base:    opts.Position,
 		baseDir: cmp.Or(opts.Dir, motion.Up),
 		began:   clk.Now(),
+		quiet:   opts.Silent,
+		rng:     rand.New(rand.NewPCG(opts.Seed, noiseStream)),
 	}
 	var err error
 	if r.freq, err = pickFreq(samples, opts.Freq); err != nil {
@@ -118,8 +131,17 @@ func New(clk clock.Clock, samples []record.Sample, opts Options) (*Replay, error
 	if len(r.curve[0]) == 0 && len(r.curve[1]) == 0 {
 		return nil, fmt.Errorf("replay: no samples with forward power at %v: %w", r.freq, ErrNoData)
 	}
+	r.noise = EstimateNoise(samples, r.freq)
 	return r, nil
 }
+
+// noiseStream is the second word of the noise generator's state, so that the same Seed gives
+// the same readings.
+const noiseStream = 0x7265706c6179
+
+// Noise is the recording's reading noise as EstimateNoise measures it: what every reading
+// carries unless Options.Silent.
+func (r *Replay) Noise() Noise { return r.noise }
 
 // curves averages the samples at freq by direction and step, each direction sorted by step.
 func curves(samples []record.Sample, freq physic.Frequency) ([2][]point, error) {
@@ -226,6 +248,7 @@ func (r *Replay) Read(ctx context.Context) (sense.Reading, error) {
 	at := begin.Add(r.conv / 2)
 	r.mu.Lock()
 	pos, dir, carrier := r.positionAt(at), r.dirAt(at), r.carrier
+	zf, zr := r.rng.NormFloat64(), r.rng.NormFloat64()
 	r.mu.Unlock()
 	if !carrier {
 		return sense.Reading{At: at}, nil
@@ -234,11 +257,24 @@ func (r *Replay) Read(ctx context.Context) (sense.Reading, error) {
 	if err != nil {
 		return sense.Reading{}, fmt.Errorf("replay: read at step %d travelling %s: %w", pos, dirName(dir), err)
 	}
+	ref := g2 * fwd
+	if !r.quiet {
+		fwd *= noiseFactor(r.noise.Forward, zf)
+		ref *= noiseFactor(r.noise.Reflected, zr)
+	}
 	return sense.Reading{
 		At:        at,
 		Forward:   physic.Power(math.Round(fwd)),
-		Reflected: physic.Power(math.Round(g2 * fwd)),
+		Reflected: physic.Power(math.Round(ref)),
 	}, nil
+}
+
+// noiseFactor is e^{σ·z}: a reading scattered by σ of its log; none below quietNoise.
+func noiseFactor(sigma, z float64) float64 {
+	if sigma < quietNoise {
+		return 1
+	}
+	return math.Exp(sigma * z)
 }
 
 // lookup finds forward power and |Γ|² at step p travelling in direction d.

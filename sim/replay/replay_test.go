@@ -160,7 +160,8 @@ func TestInterpolatesForwardAndGamma2(t *testing.T) {
 func TestReadingFollowsTheDirectionOfTravel(t *testing.T) {
 	const play, centre = 40, 1000
 	rec := append(dipSweep(900, 1100, play, centre, 10), dipSweep(1100, 900, play, centre, 10)...)
-	r, clk := newReplay(t, rec, replay.Options{Position: 900})
+	// Silent: the recording's own readings, exactly, with no noise on them.
+	r, clk := newReplay(t, rec, replay.Options{Position: 900, Silent: true})
 	if err := r.Enable(true); err != nil {
 		t.Fatal(err)
 	}
@@ -216,7 +217,7 @@ func TestSteppedSearchSeesTheBacklash(t *testing.T) {
 
 func TestMoveWithoutPulsesKeepsTheDirection(t *testing.T) {
 	rec := append(dipSweep(900, 1100, 40, 1000, 10), dipSweep(1100, 900, 40, 1000, 10)...)
-	r, clk := newReplay(t, rec, replay.Options{Position: 990})
+	r, clk := newReplay(t, rec, replay.Options{Position: 990, Silent: true})
 	if err := r.Enable(true); err != nil {
 		t.Fatal(err)
 	}
@@ -268,7 +269,7 @@ func TestFallbackUsesTheOtherDirectionShifted(t *testing.T) {
 		{"outside that direction's span", append(up, dipSweep(950, 900, play, 1000, 10)...)},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			r, _ := newReplay(t, tc.rec, replay.Options{Position: 1000, Dir: motion.Down, Fallback: true, Backlash: play})
+			r, _ := newReplay(t, tc.rec, replay.Options{Position: 1000, Dir: motion.Down, Fallback: true, Backlash: play, Silent: true})
 			want := find(t, up, 1000+play, motion.Up)
 			if got := read(t, r); got.Reflected != want.Reflected || got.Forward != want.Forward {
 				t.Fatalf("reflected %v, want the up sweep's %v at %d", got.Reflected, want.Reflected, 1000+play)
@@ -277,7 +278,7 @@ func TestFallbackUsesTheOtherDirectionShifted(t *testing.T) {
 	}
 	// Where the direction has data of its own, the fallback stays out of it.
 	both := append(dipSweep(900, 1100, play, 1000, 10), dipSweep(1100, 900, play, 1000, 10)...)
-	r, _ := newReplay(t, both, replay.Options{Position: 1010, Dir: motion.Down, Fallback: true, Backlash: 5})
+	r, _ := newReplay(t, both, replay.Options{Position: 1010, Dir: motion.Down, Fallback: true, Backlash: 5, Silent: true})
 	if got, want := read(t, r), find(t, both, 1010, motion.Down); got.Reflected != want.Reflected {
 		t.Fatalf("reflected %v, want the down sweep's own %v", got.Reflected, want.Reflected)
 	}
@@ -543,7 +544,7 @@ func TestReplaysARecordingFile(t *testing.T) {
 		t.Fatal(err)
 	}
 	for _, d := range []motion.Direction{motion.Up, motion.Down} {
-		r, _ := newReplay(t, back, replay.Options{Position: 1010, Dir: d})
+		r, _ := newReplay(t, back, replay.Options{Position: 1010, Dir: d, Silent: true})
 		if got, want := read(t, r), find(t, rec, 1010, d); got.Reflected != want.Reflected {
 			t.Fatalf("travelling %v: reflected %v, want %v", d, got.Reflected, want.Reflected)
 		}

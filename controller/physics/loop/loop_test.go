@@ -130,12 +130,10 @@ func TestSkinDepthOfCopper(t *testing.T) {
 
 // commonLoop is the common-practice build: two turns of 7.5 ft diameter made from one 50 ft
 // length of 3/4-inch copper pipe (0.875 in outside diameter, common practice), turns 4 inches
-// apart.
+// apart, with its own capacitance.
 func commonLoop() Model {
-	return Model{
-		Geometry:  Geometry{Turns: 2, Diameter: 7.5 * foot, ConductorDiameter: 0.875 * inch, Spacing: 4 * inch},
-		Conductor: Copper,
-	}
+	g := Geometry{Turns: 2, Diameter: 7.5 * foot, ConductorDiameter: 0.875 * inch, Spacing: 4 * inch}
+	return Model{Geometry: g, Conductor: Copper, SelfCapacitance: g.SelfCapacitance()}
 }
 
 func TestCommonPracticeTwoTurnLoop(t *testing.T) {
@@ -213,7 +211,7 @@ func TestCapacitorVoltageCircuitLaw(t *testing.T) {
 	// at X_C = 1/(ωC) with C the whole resonating capacitance.
 	w := 2 * math.Pi * f
 	i := math.Sqrt(p / e.RTotal)
-	vc := i / (w * (e.Capacitance + m.Stray))
+	vc := i / (w * (e.Capacitance + e.Parallel))
 	near(t, "V_rms = I·X_C", e.VoltageRMS, vc, 1e-9)
 	near(t, "V_rms = √(P·X_L·Q_u)", e.VoltageRMS, math.Sqrt(p*e.Reactance*e.QUnloaded), 1e-9)
 	near(t, "V_peak = √2·V_rms", e.VoltagePeak, math.Sqrt2*vc, 1e-9)
@@ -230,7 +228,8 @@ func TestTemperatureMovesResonance(t *testing.T) {
 	m := commonLoop()
 	// Copper expands 17 ppm/K (common practice), so L grows alike and f0 ∝ 1/√(L·C) falls by
 	// half that: 8.5 ppm/K, about 32 Hz/K at 3.75 MHz.
-	c := m.At(3.75e6, 1, 20).Capacitance
+	e := m.At(3.75e6, 1, 20)
+	c := e.Capacitance + e.Parallel // all of it, held fixed
 	l20, l30 := m.InductanceAt(20), m.InductanceAt(30)
 	near(t, "ΔL/L over 10 K", l30/l20-1, 170e-6, 1e-9)
 	f20 := 1 / (2 * math.Pi * math.Sqrt(l20*c))

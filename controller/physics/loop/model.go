@@ -45,9 +45,13 @@ type Model struct {
 	Geometry  Geometry
 	Conductor Conductor
 	Losses    Losses
-	// Stray is the capacitance in parallel with the tuning capacitor (the loop's own
-	// distributed capacitance, leads, the capacitor's frame), F.
+	// Stray is the capacitance in parallel with the tuning capacitor besides the winding's own:
+	// leads, the capacitor's frame and fittings, F.
 	Stray float64
+	// SelfCapacitance is the winding's own capacitance across the capacitor at
+	// ReferenceTemperature (Geometry.SelfCapacitance), F; zero leaves it out. It grows with the
+	// loop's size as the copper expands.
+	SelfCapacitance float64
 }
 
 // Validate reports every problem with m at once.
@@ -56,7 +60,17 @@ func (m Model) Validate() error {
 	if !(m.Stray >= 0 && m.Stray <= 1e-9) {
 		errs = append(errs, fmt.Errorf("stray capacitance %g F: want 0 to 1 nF", m.Stray))
 	}
+	// A geometry that fails has no self-capacitance to check (it is NaN): said once, above.
+	if errs[0] == nil && !(m.SelfCapacitance >= 0 && m.SelfCapacitance <= 1e-9) {
+		errs = append(errs, fmt.Errorf("self-capacitance %g F: want 0 to 1 nF", m.SelfCapacitance))
+	}
 	return errors.Join(errs...)
+}
+
+// ParallelAt is the capacitance across the tuning capacitor besides its own at temperature t
+// (°C): the winding's own, grown with the copper, and the stray, F.
+func (m Model) ParallelAt(t float64) float64 {
+	return m.Stray + m.SelfCapacitance*(1+m.Conductor.Expansion*(t-ReferenceTemperature))
 }
 
 // InductanceAt is the inductance at temperature t (°C): every dimension grows with the
@@ -87,7 +101,8 @@ type Electrical struct {
 	Power       float64 // W delivered to the loop
 	Inductance  float64 // H
 	Reactance   float64 // X_L, Ω
-	Capacitance float64 // tuning capacitance needed (total resonating capacitance minus stray), F
+	Capacitance float64 // tuning capacitance needed (total resonating capacitance minus Parallel), F
+	Parallel    float64 // the winding's own capacitance and the stray, across the capacitor, F
 	SkinDepth   float64 // m
 	Proximity   float64 // conductor-loss multiplier used
 	RRad        float64 // radiation resistance, Ω
@@ -120,7 +135,8 @@ func (m Model) At(f, p, t float64) Electrical {
 
 	e := Electrical{Frequency: f, Temperature: t, Power: p, Inductance: l}
 	e.Reactance = w * l
-	e.Capacitance = 1/(w*w*l) - m.Stray
+	e.Parallel = m.ParallelAt(t)
+	e.Capacitance = 1/(w*w*l) - e.Parallel
 	e.SkinDepth = SkinDepth(rho, f)
 	e.Proximity = m.Losses.Proximity
 	if e.Proximity == 0 {
@@ -158,6 +174,6 @@ func (m Model) SmallLoopLimit(f float64) bool {
 func (m Model) Detuning(f, c, t float64) float64 {
 	e := m.At(f, 0, t)
 	w := 2 * math.Pi * f
-	x := e.Reactance - 1/(w*(c+m.Stray))
+	x := e.Reactance - 1/(w*(c+e.Parallel))
 	return x / e.RTotal
 }
