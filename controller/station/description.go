@@ -131,7 +131,7 @@ const (
 	// winding's own: the straps from the loop's ends to the capacitor and its frame (guess: a
 	// few pF). The winding itself adds about 26 pF (loop.Geometry.SelfCapacitance), 29 pF in
 	// all.
-	defaultLeadsPF = 3
+	defaultLeadsPF              = 3
 	defaultCapacitanceTolerance = 0.03
 	defaultStrayTolerancePF     = 3
 )
