@@ -77,7 +77,7 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	}
 	ro := s.Simulator.Radio
 	f := physic.Frequency(math.Round(ro.FrequencyHz)) * physic.Hertz
-	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(ro.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB}); err != nil {
+	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(ro.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB, Clock: clk}); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
 	co, err := s.CouplerOptions()
@@ -97,7 +97,7 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 // radio's frequency, the shaft's position and the air temperature.
 func (st *Station) line() (float64, complex128) {
 	rs := st.Radio.State()
-	on, p := rs.Carrier()
+	on, p := st.Radio.Carrier() // on the antenna only once the radio has keyed up
 	if !on {
 		return 0, 0
 	}
@@ -126,6 +126,13 @@ func (t Thermometer) Temperature() (physic.Temperature, error) {
 // perfect meter would show with a carrier.
 func (st *Station) TrueSWR(f float64) float64 {
 	return st.RF.SWR(f, st.Mech.Shaft()/st.perTurn, st.Temperature())
+}
+
+// SWRAt is the SWR at frequency f (Hz) now with the motor at motor (the mechanism's own
+// position, motor steps), approached from below with the gear play taken up: where the shaft
+// would be, whether or not the motor stops there.
+func (st *Station) SWRAt(f float64, motor float64) float64 {
+	return st.RF.SWR(f, (motor-st.Spec.ShaftLag())/st.perTurn, st.Temperature())
 }
 
 // Best is the oracle's answer for frequency f (Hz) now: the motor position, approached from

@@ -198,7 +198,13 @@ func (w *tuneWriter) observe(e tune.Event) {
 	case tune.KindPositioned:
 		truth := ""
 		if w.rig != nil {
-			truth = fmt.Sprintf(" (true SWR there %.2f)", w.rig.Station.TrueSWR(bench.Hz(e.Freq)))
+			off := w.rig.Axis.Position() - w.rig.Station.Mech.MotorPosition()
+			truth = fmt.Sprintf(" (true SWR there %.2f)", w.rig.Station.SWRAt(bench.Hz(e.Freq), e.Pos-float64(off)))
+		}
+		if e.Text != "" {
+			// the search went straight to its start: the prediction placed it, no stop there
+			fmt.Fprintf(w.out, "%8.3f s  pre-positioned at %.0f without RF%s: %s\n", at, e.Pos, truth, e.Text)
+			break
 		}
 		fmt.Fprintf(w.out, "%8.3f s  pre-positioned at %.0f without RF%s\n", at, e.Pos, truth)
 	case tune.KindMove:

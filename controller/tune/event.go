@@ -15,7 +15,7 @@ type Kind string
 const (
 	KindState      Kind = "state"      // the state machine moved (From → State)
 	KindPrediction Kind = "prediction" // where the map expects the dip
-	KindPositioned Kind = "positioned" // the RF-free pre-position is done (Pos)
+	KindPositioned Kind = "positioned" // the RF-free pre-position is done (Pos), or, with Text, where it would have gone
 	KindMove       Kind = "move"       // a move was started (Pos → Target)
 	KindReading    Kind = "reading"    // one coupler reading at a position
 	KindNoise      Kind = "noise"      // the measured reading noise, and the sweep it sized

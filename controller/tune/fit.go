@@ -20,9 +20,13 @@ type dipFit struct {
 	Centre    float64 // motor position of the loop's resonance (its own |Γ| minimum), steps
 	HalfWidth float64 // loaded half-power half-width, steps (0 for "minimum")
 	MinGamma2 float64 // measured |Γ|² the curve gives at Centre (includes the coupler's leakage)
-	Chi2      float64 // reduced χ² against the noise model (about 1 for a good fit)
+	Chi2      float64 // reduced χ² against the noise model and the readings' placement (about 1 for a good fit)
 	N         int     // samples used
 	curve     curve
+	// doubt, if not empty, says why the fit is not to be trusted: a fit that was still doubtful
+	// after the most readings, kept only to leave the loop near its dip (see roughError).
+	// settle goes to its centre and ends not-tuned; nothing is learned from it.
+	doubt string
 }
 
 // curve is a fitted model's coefficients, kept to draw it.
@@ -68,7 +72,7 @@ func fitDip(k *fitParams, samples []sample, expWidth, relNoise float64) (dipFit,
 	if fr, err := fitRational(k, samples, expWidth, relNoise); err == nil {
 		return fr, nil
 	}
-	if fl, err := fitLorentzian(k, samples, expWidth); err == nil {
+	if fl, err := fitLorentzian(k, samples, expWidth, relNoise); err == nil {
 		return fl, nil
 	}
 	return fitMinimum(k, samples), nil
@@ -153,22 +157,32 @@ func fitRational(k *fitParams, samples []sample, expWidth, relNoise float64) (di
 		N:         n,
 		curve:     curve{method: "rational", ref: ref, scale: scale, c: th},
 	}
+	// χ² against the noise model and the readings' placement: a reading taken on the move is
+	// placed to a whole step, which on a steep flank is worth more than the converter's noise.
 	chi := 0.0
 	for i, s := range samples {
-		r := (s.Gamma2 - model[i]) / (relNoise*math.Max(model[i], 0) + absNoise)
+		x := xs[i]
+		d := x*x + th[3]*x + th[4]
+		slope := ((th[1]+2*th[2]*x)*d - (th[0]+th[1]*x+th[2]*x*x)*(2*x+th[3])) / (d * d) / scale
+		sd := math.Hypot(relNoise*math.Max(model[i], 0)+absNoise, slope*k.placement)
+		r := (s.Gamma2 - model[i]) / sd
 		chi += r * r
 	}
 	f.Chi2 = chi / float64(max(n-5, 1))
-	if err := f.plausible(k, samples, expWidth, th[2]); err != nil {
+	// A bottom a little below zero is noise: the noise near the dip is what the residuals
+	// there say (absNoise), which a coupler's leakage and a detector's error near its floor can
+	// make far more than the quiet readings off the dip suggest.
+	if err := f.plausible(k, samples, expWidth, th[2], math.Min(k.minBottom, -k.bottomSigmas*absNoise)); err != nil {
 		return dipFit{}, err
 	}
 	return f, nil
 }
 
 // plausible rejects fits that the samples do not support: a centre outside the swept span,
-// too few samples on either side of it, a width far from any the loop can have, or a far-off
-// |Γ|² that is not near total reflection.
-func (f dipFit) plausible(k *fitParams, samples []sample, expWidth, far float64) error {
+// too few samples on either side of it, a width far from any the loop can have, a far-off
+// |Γ|² that is not near total reflection, or a |Γ|² at the centre below minBottom or above
+// fitParams.maxBottom.
+func (f dipFit) plausible(k *fitParams, samples []sample, expWidth, far, minBottom float64) error {
 	lo, hi := samples[0].Pos, samples[0].Pos
 	for _, s := range samples {
 		lo, hi = math.Min(lo, s.Pos), math.Max(hi, s.Pos)
@@ -196,7 +210,7 @@ func (f dipFit) plausible(k *fitParams, samples []sample, expWidth, far float64)
 	if far < k.minFar || far > k.maxFar {
 		return fmt.Errorf("%w: far-off |Γ|² %.2f", errNoFit, far)
 	}
-	if f.MinGamma2 < k.minBottom || f.MinGamma2 > k.maxBottom {
+	if f.MinGamma2 < minBottom || f.MinGamma2 > k.maxBottom {
 		return fmt.Errorf("%w: |Γ|² %.3f at the centre", errNoFit, f.MinGamma2)
 	}
 	return nil
@@ -205,7 +219,10 @@ func (f dipFit) plausible(k *fitParams, samples []sample, expWidth, far float64)
 // fitLorentzian is the fallback: the absorbed share 1 − |Γ|² of a resonance is a Lorentzian in
 // position, so its reciprocal is a parabola. Only samples in the upper part of the peak are
 // used, weighted by the square of the absorbed share (the reciprocal's error grows as 1/A²).
-func fitLorentzian(k *fitParams, samples []sample, expWidth float64) (dipFit, error) {
+// Its χ² is taken over those samples against the same noise and placement model as the
+// rational fit's, so that a fallback resting on a few misplaced readings is judged doubtful as
+// that one would be, not waved through for want of a χ².
+func fitLorentzian(k *fitParams, samples []sample, expWidth, relNoise float64) (dipFit, error) {
 	aMax := 0.0
 	for _, s := range samples {
 		aMax = math.Max(aMax, 1-s.Gamma2)
@@ -217,6 +234,7 @@ func fitLorentzian(k *fitParams, samples []sample, expWidth float64) (dipFit, er
 	scale := math.Max(expWidth, k.minScale)
 	var a [][]float64
 	var b []float64
+	var used []sample
 	for _, s := range samples {
 		ab := 1 - s.Gamma2
 		if ab < k.peakShare*aMax {
@@ -226,6 +244,7 @@ func fitLorentzian(k *fitParams, samples []sample, expWidth float64) (dipFit, er
 		w := ab * ab
 		a = append(a, []float64{w, w * x, w * x * x})
 		b = append(b, w/ab)
+		used = append(used, s)
 	}
 	th, err := lsq(a, b, 3)
 	if err != nil {
@@ -241,7 +260,19 @@ func fitLorentzian(k *fitParams, samples []sample, expWidth float64) (dipFit, er
 	}
 	f := dipFit{Method: "lorentzian", Centre: ref + x0*scale, HalfWidth: math.Sqrt(peak/th[2]) * scale,
 		MinGamma2: 1 - 1/peak, N: len(a), curve: curve{method: "lorentzian", ref: ref, scale: scale, c: th}}
-	if err := f.plausible(k, samples, expWidth, 1); err != nil {
+	relNoise = math.Max(relNoise, k.relFloor)
+	chi := 0.0
+	for _, s := range used {
+		x := (s.Pos - ref) / scale
+		q := th[0] + th[1]*x + th[2]*x*x
+		model := 1 - 1/q
+		slope := (th[1] + 2*th[2]*x) / (q * q) / scale
+		sd := math.Hypot(relNoise*math.Max(model, 0)+k.absNoise, slope*k.placement)
+		r := (s.Gamma2 - model) / sd
+		chi += r * r
+	}
+	f.Chi2 = chi / float64(max(len(used)-3, 1))
+	if err := f.plausible(k, samples, expWidth, 1, k.minBottom); err != nil {
 		return dipFit{}, err
 	}
 	return f, nil

@@ -125,6 +125,17 @@ func (g *guard) rfOn(at time.Time) {
 	g.mu.Unlock()
 }
 
+// rfPause notes that the carrier was dropped at now in the middle of the RF stages: the carrier
+// time stops counting until the next rfOn, while the radio's frequency is still watched.
+func (g *guard) rfPause(now time.Time) {
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	if !g.rfSince.IsZero() {
+		g.rfUsed += now.Sub(g.rfSince)
+		g.rfSince = time.Time{}
+	}
+}
+
 // rfOff ends the RF stages at now and returns the carrier time the operation has used.
 func (g *guard) rfOff(now time.Time) time.Duration {
 	g.mu.Lock()

@@ -2,6 +2,7 @@ package tune
 
 import (
 	"math"
+	"time"
 
 	"github.com/tankd/tankd/controller/motion"
 )
@@ -66,14 +67,40 @@ type sweepJudge interface {
 
 // sweepRead starts the motor from from (where it stands, or where a run-up began) to to at
 // speed, reported as a move of stage, and reads the coupler on the move, handing each reading
-// to j, until j says stop (the motor is then brought to a ramped stop and settles) or the move
-// ends (the motor settles at to). It says whether j stopped the sweep.
-func (p *op) sweepRead(stage string, from, to motion.Steps, speed float64, j sweepJudge) (stopped bool, err error) {
+// to j, until j says stop or the move ends. It says whether j stopped the sweep. The motor does
+// not settle after a sweep: a move follows. With the carrier down (not keyed yet), the run-up to
+// begin, where the readings start to count, goes without it: the carrier is keyed on the way, a
+// key-up time before the motor gets there.
+func (p *op) sweepRead(stage string, from, begin, to motion.Steps, speed float64, j sweepJudge) (stopped bool, err error) {
 	t := p.t
 	ax := t.d.Axis
 	t.emit(Event{Kind: KindMove, Stage: stage, Pos: float64(from), Target: to, Speed: speed, Freq: p.res.Freq})
 	if err := ax.Start(to, speed); err != nil {
 		return false, err
+	}
+	if p.dropped {
+		keyAt := t.d.Clock.Now().Add(p.reachTime(begin-from, speed) - t.keyLead())
+		for t.d.Clock.Now().Before(keyAt) {
+			_, moving, err := ax.Poll()
+			if err != nil {
+				return false, err
+			}
+			if err := p.check(); err != nil {
+				return false, err
+			}
+			if !moving {
+				break
+			}
+			if err := t.d.Clock.Sleep(p.ctx, min(t.par.rf.keyPoll, keyAt.Sub(t.d.Clock.Now()))); err != nil {
+				return false, err
+			}
+		}
+		if err := p.rekey(); err != nil {
+			return false, err
+		}
+		if err := p.awaitCarrier(); err != nil {
+			return false, err
+		}
 	}
 	for {
 		s, _, err := p.read(stage)
@@ -81,13 +108,65 @@ func (p *op) sweepRead(stage string, from, to motion.Steps, speed float64, j swe
 			return false, err
 		}
 		if j.take(s) == stopNow {
-			return true, ax.StopMove(p.ctx)
+			return true, p.endSweep(to, speed)
 		}
 		if _, moving, _ := ax.Poll(); !moving {
 			break
 		}
 	}
-	return false, ax.Wait(p.ctx)
+	return false, p.untilStill()
+}
+
+// reachTime is how long a move at up to speed takes from rest to cover n steps.
+func (p *op) reachTime(n motion.Steps, speed float64) time.Duration {
+	pr, err := p.t.d.Axis.Plan(1, speed)
+	d := math.Abs(float64(n))
+	if err != nil || !(pr.Accel > 0) {
+		return 0
+	}
+	v, a := math.Min(speed, pr.MaxSpeed), pr.Accel
+	sec := math.Sqrt(2 * d / a)
+	if ramp := v * v / (2 * a); d > ramp {
+		sec = v/a + (d-ramp)/v
+	}
+	return time.Duration(sec * float64(time.Second))
+}
+
+// endSweep ends a sweep the judge has seen enough of: by a ramped stop, which the axis follows
+// with its settling time, or by letting the move run its course where its end is nearer than
+// that takes (the rest of the way at speed, past the ramp a stop would need anyway).
+func (p *op) endSweep(to motion.Steps, speed float64) error {
+	ax := p.t.d.Axis
+	pos, _, err := ax.Poll()
+	if err != nil {
+		return err
+	}
+	left := math.Abs(float64(to - pos))
+	if left < p.stopDistance(speed)+speed*ax.Settle().Seconds() {
+		return p.untilStill()
+	}
+	return ax.StopMove(p.ctx)
+}
+
+// untilStill follows the running move to its end without settling, asking the guard at every
+// poll.
+func (p *op) untilStill() error {
+	t := p.t
+	for {
+		_, moving, err := t.d.Axis.Poll()
+		if err != nil {
+			return err
+		}
+		if err := p.check(); err != nil {
+			return err
+		}
+		if !moving {
+			return nil
+		}
+		if err := t.d.Clock.Sleep(p.ctx, t.par.rf.keyPoll); err != nil {
+			return err
+		}
+	}
 }
 
 // target rounds a position and keeps it where an approach can take up the gear play within the
@@ -119,7 +198,7 @@ func (p *op) clampPos(pos float64) float64 {
 // calibration.
 func (p *op) backlashEstimate() float64 {
 	if p.t.calibrated {
-		return float64(p.t.d.Axis.Snapshot().Backlash)
+		return p.t.play
 	}
 	return float64(p.t.o.NominalBacklash) * p.t.par.motion.assumedPlay
 }

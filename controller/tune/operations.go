@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 
 	"periph.io/x/conn/v3/physic"
 
@@ -23,12 +24,14 @@ func (p *op) tune(req Request) (Outcome, error) {
 	if err != nil {
 		return "", err
 	}
-	if err := p.preposition(pred); err != nil {
-		return "", err
-	}
 	if !req.RF {
+		if err := p.preposition(pred); err != nil {
+			return "", err
+		}
 		return Positioned, nil
 	}
+	// With RF to follow, the motor goes straight to where the search begins, with no stop at
+	// the prediction on the way (search reports the prediction's position once there).
 	fit, err := p.findDip(pred)
 	if err != nil {
 		return "", err
@@ -59,9 +62,6 @@ func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
 	if err != nil {
 		return "", err
 	}
-	if err := p.preposition(pred); err != nil {
-		return "", err
-	}
 	fit, err := p.findDip(pred)
 	if err != nil {
 		return "", err
@@ -71,6 +71,8 @@ func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
 	}
 	outcome := Calibrated
 	var pl play
+	p.minCore, p.centreNoise = t.par.play.minCore, t.par.play.centreNoise
+	defer func() { p.minCore, p.centreNoise = 0, 0 }()
 	for effort := 1; ; effort *= t.par.sweep.retryGrowth {
 		if pl, err = p.measurePlay(fit, effort); err == nil {
 			break
@@ -92,9 +94,12 @@ func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
 	if outcome == Calibrated {
 		t.d.Axis.UseBacklash(pl.b)
 		t.calibrated = true
+		t.play = pl.up - pl.down
+		t.playSigma = math.Max(t.par.play.centreNoise, pl.spread/math.Sqrt2)
+		t.playSpeed = p.calSpeed
 		p.res.Backlash = pl.b
 		t.note(p.res, "backlash %d steps (up-sweep dip %.1f, down-sweep %.1f, repeatability ±%.1f)", pl.b, pl.up, pl.down, pl.spread/2)
-		fit.Centre = pl.up
+		fit.Centre, fit.doubt = pl.up, "" // (the calibration's own sweeps found it)
 	}
 	if err := p.settle(fit, pred); err != nil {
 		return "", err
@@ -211,48 +216,55 @@ func (p *op) preposition(pred Prediction) error {
 	return nil
 }
 
+// positionedFrom reports the position the prediction gives, where the motor would have been
+// pre-positioned, when the search that follows goes straight to its own start instead: the
+// prediction placed the motor all the same (the search starts from it), and how far the dip turns
+// out from it is what an operator, and the map's record of its own errors, judge it by. It is
+// reported once the motor has got there, as a pre-position is.
+func (p *op) positionedFrom(pred Prediction) {
+	if !pred.Trusted || pred.Source == SourceNone {
+		return
+	}
+	target := p.target(pred.Pos)
+	p.res.Prepositioned, p.res.PrePos = true, target
+	p.t.emit(Event{Kind: KindPositioned, Pos: float64(target), Freq: p.res.Freq,
+		Text: "not stopped at: straight to the search's start"})
+}
+
 // findDip puts the carrier on and finds the dip: from the prediction with the position trusted,
 // by a search of the whole travel that re-references the position without.
 func (p *op) findDip(pred Prediction) (dipFit, error) {
-	if err := p.belowSweep(pred); err != nil {
-		return dipFit{}, err
-	}
-	if err := p.carrierOn(); err != nil {
-		return dipFit{}, err
-	}
 	if !p.t.d.Axis.Trusted() {
+		if err := p.carrierOn(); err != nil {
+			return dipFit{}, err
+		}
 		return p.reference(pred)
 	}
 	return p.search(pred)
 }
 
-// belowSweep goes below the fine sweep's start before the carrier goes on, when the map is sure
-// enough for the search to begin with the fine sweep (that move needs no RF; the sweep takes up
-// the play on its way up).
-func (p *op) belowSweep(pred Prediction) error {
-	u, ok := p.t.direct(pred)
-	if !ok {
-		return nil
-	}
-	_, _, start, _ := p.window(pred.Pos, u, pred.Width, motion.Up)
-	lmin, _ := p.t.d.Axis.SoftLimits()
-	return p.move("fine", max(start-p.t.runUp(), lmin), passMove)
-}
-
 // search finds the dip around the prediction: straight to the fine sweep when the map is sure
-// enough, otherwise a coarse scan first, widening the window up to the whole travel.
+// enough, otherwise a coarse scan first, widening the window up to the whole travel. The motor
+// goes with no RF straight to where the first sweep or scan begins, and the carrier is keyed
+// on the way so that it is there as the motor has settled.
 func (p *op) search(pred Prediction) (dipFit, error) {
-	k := &p.t.par.scan
+	t := p.t
+	k := &t.par.scan
 	w := pred.Width
-	noise, err := p.measureNoise()
-	if err != nil {
-		return dipFit{}, err
-	}
-	lo, hi := p.t.d.Axis.SoftLimits()
+	lo, hi := t.d.Axis.SoftLimits()
 	centre, half := (float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2
-	if pred.Source != SourceNone && pred.Trusted {
-		if u, ok := p.t.direct(pred); ok {
-			f, err := p.refineAround(coarseHit{pos: pred.Pos, uncertainty: u}, w, noise)
+	var noise noiseLevel
+	rf := false
+	if pred.Source != SourceNone {
+		if u, ok := t.direct(pred); ok {
+			st := t.d.Axis.Snapshot()
+			plan := p.planSweep(pred.Pos, u, w, st.Position, st.Play)
+			var err error
+			if noise, err = p.rfAt(plan.legs, w, plan.runUp, pred); err != nil {
+				return dipFit{}, err
+			}
+			rf = true
+			f, err := p.refineAroundEffort(coarseHit{pos: pred.Pos, uncertainty: u}, w, noise, 1, plan.dir)
 			if err == nil {
 				return f, nil
 			}
@@ -262,12 +274,29 @@ func (p *op) search(pred Prediction) (dipFit, error) {
 		}
 		centre, half = pred.Pos, k.windowSigmas*pred.Sigma+k.windowWidths*w
 	}
+	var first motion.Direction
+	given := pred
+	if !rf {
+		// where the first scan begins: the motor goes there with no RF
+		st := t.d.Axis.Snapshot()
+		slo, shi := p.scanWindow(centre, half)
+		speed := p.scanSpeed(w, 1)
+		if pred.Source == SourceNone {
+			pred.Pos, pred.Sigma = centre, 0
+		}
+		plan := p.planScan(slo, shi, pred, st.Position, st.Play, speed)
+		var err error
+		if noise, err = p.rfAt(plan.legs, w, false, given); err != nil {
+			return dipFit{}, err
+		}
+		first = plan.dir
+	}
 	for {
-		c, err := p.coarse(centre, half, w, noise)
+		c, err := p.coarse(centre, half, w, noise, first)
 		if err != nil {
 			return dipFit{}, err
 		}
-		f, err := p.refineAround(c, w, noise)
+		f, err := p.sweepAfterScan(c, w, noise)
 		if !errors.Is(err, errNotInWindow) || len(p.rejects) >= k.falseHits {
 			return f, err
 		}
@@ -277,6 +306,94 @@ func (p *op) search(pred Prediction) (dipFit, error) {
 		p.rejects = append(p.rejects, [2]float64{c.pos - u, c.pos + u})
 		p.t.emit(Event{Kind: KindNote, Text: fmt.Sprintf("no dip near %.0f after all: scanning on", c.pos)})
 	}
+}
+
+// rfAt takes the motor along legs with no RF (positioning) and begins the RF stages there: the
+// carrier is keyed a measured key-up time before the motor arrives, so that both are ready
+// together. Then the reading noise is measured with the motor still, unless an earlier
+// measurement makes that needless for a dip of half-width w (noiseKnown). (Where an earlier
+// measurement is pooled with the new one, the motor does not wait to settle: its ringing, far
+// off the dip, can only make the few new readings look noisier, which slows the sweep a little,
+// never speeds it.)
+//
+// Once the motor is there, the position the prediction pred gave is reported (positionedFrom).
+func (p *op) rfAt(legs []motion.Steps, w float64, runUp bool, pred Prediction) (noiseLevel, error) {
+	t := p.t
+	known, ok := p.noiseKnown(w)
+	start := p.startRF
+	if ok && runUp && t.keyLead() > 0 {
+		// no reading before the sweep, which begins with its own run-up: it keys on the way
+		start = p.armRF
+	}
+	if len(legs) > 0 {
+		if err := p.to(Positioning); err != nil {
+			return noiseLevel{}, err
+		}
+		if err := p.travel("position", legs, !t.noiseFresh(), t.keyLead(), start); err != nil {
+			return noiseLevel{}, err
+		}
+	} else if err := start(); err != nil {
+		return noiseLevel{}, err
+	}
+	p.positionedFrom(pred)
+	if p.dropped {
+		p.noise = known
+		t.emit(Event{Kind: KindNoise, Freq: p.res.Freq, Gamma2: known.gamma,
+			Text: fmt.Sprintf("reading noise %.2f %% relative, %.4f absolute as measured before: too low to matter", 100*known.rel, known.abs)})
+		return known, nil
+	}
+	if err := p.awaitCarrier(); err != nil {
+		return noiseLevel{}, err
+	}
+	if !ok {
+		return p.measureNoise()
+	}
+	if sp := p.spare; sp != nil && p.baseline == 1 && sp.r.Gamma2() > t.par.noise.offDipGamma2 {
+		p.baseline = sp.r.Gamma2() // the coupler's own off-dip reading, where the sweep begins
+	}
+	p.noise = known
+	t.emit(Event{Kind: KindNoise, Freq: p.res.Freq, Gamma2: known.gamma,
+		Text: fmt.Sprintf("reading noise %.2f %% relative, %.4f absolute as measured before: too low to matter", 100*known.rel, known.abs)})
+	return known, nil
+}
+
+// sweepAfterScan runs the fine sweep through the dip a scan found, from where the scan stopped:
+// upward, or downward where the play is measured and that is quicker (planSweep). The carrier is
+// dropped for the legs to the sweep's start where that saves more carrier time than keying again
+// costs.
+func (p *op) sweepAfterScan(c coarseHit, w float64, noise noiseLevel) (dipFit, error) {
+	t := p.t
+	if err := p.to(Refining); err != nil {
+		return dipFit{}, err
+	}
+	st := t.d.Axis.Snapshot()
+	plan := p.planSweep(c.pos, c.uncertainty, w, st.Position, st.Play)
+	if len(plan.legs) > 0 {
+		lead := t.keyLead()
+		settle := noise.clipped // (the noise is measured again at the start, with the motor still)
+		if p.keyed && lead > 0 && p.legsTime(st.Position, plan.legs, settle)-lead >= t.par.rf.rekeyGain {
+			if err := p.dropCarrier(); err != nil {
+				return dipFit{}, err
+			}
+			if err := p.travel("fine", plan.legs, settle, lead, p.rekey); err != nil {
+				return dipFit{}, err
+			}
+			if err := p.awaitCarrier(); err != nil {
+				return dipFit{}, err
+			}
+		} else if err := p.travel("fine", plan.legs, settle, 0, nil); err != nil {
+			return dipFit{}, err
+		}
+	}
+	if noise.clipped {
+		// measured where the readings clip at full reflection: measure again here, nearer
+		// the dip, with the motor still
+		var err error
+		if noise, err = p.measureNoise(); err != nil {
+			return dipFit{}, err
+		}
+	}
+	return p.refineAroundEffort(c, w, noise, 1, plan.dir)
 }
 
 // endRF ends the RF stages once the tune is verified: the carrier is dropped, and the radio

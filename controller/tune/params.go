@@ -1,6 +1,7 @@
 package tune
 
 import (
+	"math"
 	"time"
 
 	"periph.io/x/conn/v3/physic"
@@ -30,6 +31,32 @@ type noiseParams struct {
 	// readings taken with the motor still: eight give the standard deviation to within about a
 	// quarter (its relative standard error is 1/√(2(n−1))), for 8 reading times of carrier.
 	readings int
+	// fewReadings are taken instead where an earlier measurement near the same |Γ|² can be
+	// pooled with them (the coupler and its converter stay the same from tune to tune): three
+	// add enough to notice a change, at well under half the carrier (a judgement).
+	fewReadings int
+	// memoryWeight is the most degrees of freedom an earlier measurement brings to the pool:
+	// seven, those of a full measurement, so that the estimate never rests more on the past
+	// than a full fresh measurement would (a judgement).
+	memoryWeight int
+	// memoryAge: an earlier measurement older than this is not pooled; a converter's noise
+	// follows its temperature and whatever shares its supply (a judgement).
+	memoryAge time.Duration
+	// change: the factor by which the noise may have grown since an earlier measurement that
+	// still counts (interference comes and goes); where even that much noise would not change
+	// the sweep, no new measurement is made (noiseKnown). Two: a doubled noise is already a
+	// disturbance an operator would notice (a judgement).
+	change float64
+	// poolLevels: an earlier measurement is pooled only if made at a |Γ|² within this factor
+	// (as a natural log: a factor of two) of the new one; noise on the dip and off it differ.
+	poolLevels float64
+	// clippedRel and clippedAbs are the noise assumed where the readings could not show it
+	// (they read full reflection, clipped: a coupler's leakage can add to the reflection off
+	// the dip) and no earlier measurement stands in: the noisiest coupler the tuner is meant for,
+	// some four times the demo station's 0.7 % (the benchmark's range), so that the sweep is
+	// sized on the safe side and the fit is not judged against a noise it cannot have.
+	clippedRel float64
+	clippedAbs float64
 	// minCarried is the fewest of them that must have seen a carrier: a standard deviation of
 	// fewer than three readings says nothing.
 	minCarried int
@@ -79,6 +106,13 @@ type scanParams struct {
 	// width.
 	windowSigmas float64
 	windowWidths float64
+	// startSigmas: a scan from outside the window begins this many σ (and windowWidths w) short
+	// of the prediction, the rest of the window scanned after where the dip was not ahead. One:
+	// a normal error lies beyond it on that side one time in six (fewer with the prior's σ, which
+	// is drawn wide), and the rescan that costs then is outweighed by the σ or two not scanned
+	// slowly on every other tune (a judgement, weighed on the bench's cold runs: mean, median
+	// and 95th percentile all fall against two or three).
+	startSigmas float64
 	// growth: a window that holds no dip grows to growth times its half-width plus one w,
 	// around the same centre (threefold: the next window is mostly new ground, and the whole
 	// travel is reached in a few steps).
@@ -118,6 +152,18 @@ type scanParams struct {
 	// inDipShare: averaged readings below this share of the running baseline are well inside
 	// a dip and are left out of it (a scan that starts on the dip would take it for the level).
 	inDipShare float64
+	// holeWidths and holeSpacings: readings further apart than holeWidths·w, and than
+	// holeSpacings times the scan's own spacing, leave a stretch that may hide a dip (late
+	// readings on a busy computer). A dip deep enough to tune to an SWR of 2 (absorbing 0.89
+	// of the power) stays above minThreshold over ±2.6w: a gap of 2.5w can leave a single
+	// reading on it, short of hitReadings; shorter gaps are common on a loaded board and
+	// harmless. Two spacings keep a scan whose spacing is set by minSpacing from flagging every
+	// gap.
+	holeWidths   float64
+	holeSpacings float64
+	// holeRounds is how many times the stretches a scan skipped are scanned again before the
+	// window grows (a rescan can skip again).
+	holeRounds int
 	// calibratedUncertainty, steps, is how far a position found scanning downward may be off
 	// once a calibration has measured the play: the measurement's own repeatability (a
 	// judgement).
@@ -127,7 +173,9 @@ type scanParams struct {
 // sweepParams shape the fine sweep through the dip and the judging of its fit.
 type sweepParams struct {
 	// marginWidths: the sweep covers the dip's uncertainty and this many w beyond each end of
-	// it, so that the fit sees both flanks down to about a sixth of the peak absorption.
+	// it, so that the fit sees both flanks down to about a quarter of the peak absorption (a
+	// Lorentzian's 1/(1+1.8²)), where they are still steep enough to place it; further out they
+	// add little to the centre and cost a sweep that much longer.
 	marginWidths float64
 	// directSigmas, directSlack (steps) and directWidths decide whether a prediction is good
 	// enough to skip the coarse scan: 3σ + 1 step within 4w (a judgement: a wider window makes
@@ -139,18 +187,27 @@ type sweepParams struct {
 	// fitted centre from N readings within ±w with relative noise σ (measured on simulated
 	// sweeps; see the fit tests).
 	centreFactor float64
-	// widthCentreNoise: a wide dip forgives more, as an error δ costs an SWR of about 1 + 2δ/w,
-	// so the centre's target error grows to this share of w where that exceeds
-	// Options.CentreNoise (0.008·w costs about 1.6 % in SWR).
-	widthCentreNoise float64
-	// minCore and maxCore bound the readings within ±w: ten give a fit on quiet readings
-	// something to average, eighty keep a noisy sweep within a few seconds of carrier (a
-	// judgement).
+	// swrBudget is the SWR a placement error may cost: half of the 0.1 by which a tune may
+	// fall short of the best achievable SWR (common practice for "in tune", and the benchmark's
+	// success tolerance), the other half left to rounding to a whole step and to the verify. An
+	// error δ costs about 2δ/w at a perfect match (less where the match is not perfect), so
+	// the budget allows δ = swrBudget·w/2 ...
+	swrBudget float64
+	// ... and centreSigmas: the centre's standard error is held to this fraction of that δ, so
+	// that three tunes in a thousand at most miss it: 0.05·w/6 ≈ 0.008·w. The readings the
+	// sweep takes follow from it and the measured noise (sweepSpeed), never finer than
+	// Options.CentreNoise asks.
+	centreSigmas float64
+	// minCore and maxCore bound the readings within ±w: five, the rational curve's
+	// coefficients, are the least that determine it where the centre's information lies (the
+	// noise asks for fewer only on the quietest couplers); eighty keep a noisy sweep within a few
+	// seconds of carrier (a judgement).
 	minCore float64
 	maxCore float64
 	// minSpacing (steps) and maxSpacing (of w) bound the distance between readings: below a
-	// twentieth of a step more readings only repeat the motor's own microstep error; above a
-	// quarter of w the fit has too few readings on the flanks (a judgement).
+	// twentieth of a step more readings only repeat the motor's own microstep error; above 0.4
+	// w, the spacing of minCore readings within ±w, the flanks hold too few readings for the
+	// fit and the sweep comes near the gap judged too sparse (maxGap).
 	minSpacing float64
 	maxSpacing float64
 	// minSpeed, steps per second, keeps a sweep from crawling on a slow converter (a
@@ -162,7 +219,8 @@ type sweepParams struct {
 	deepShare  float64
 	deepSigmas float64
 	// ... passedShare and passedWidths: and the absorbed share has fallen below passedShare of
-	// that peak, passedWidths·w beyond it (a Lorentzian is at a fifth 2w off its centre).
+	// that peak, passedWidths·w beyond it (a Lorentzian is at 0.28 of its peak 1.6w off its
+	// centre: the far flank then holds as much of the curve as the margin gives the near one).
 	passedShare  float64
 	passedWidths float64
 	// minDepth: a sweep whose deepest reading absorbs less than this saw no dip.
@@ -189,6 +247,36 @@ type sweepParams struct {
 	// on: a sweep sparser than that (late readings on a busy computer) is swept again (a
 	// judgement).
 	maxGap float64
+	// maxChi2: a fit whose reduced χ² (noise and placement, see fitParams.placement) exceeds
+	// this does not describe its readings (readings misplaced by a drive late on its steps
+	// under heavy load, or a dip that moved during the sweep), whatever its centre says, and is
+	// swept again. Correct fits on the simulated stations stay below about 3, and below about
+	// 10 on an overloaded board; one of 16 was seen to put a tune a dozen steps off (a
+	// judgement, from those runs).
+	maxChi2 float64
+	// maxDownChi2: a sweep downward is held to this instead, and swept again upward where it
+	// fails: its centre is turned into final-approach coordinates by the play a calibration
+	// measured, which holds only while the drive train behaves as it did then, and a fit that
+	// describes its readings less well than a correct one does (about 3) says it may not. On the
+	// bench's harsh ranges, down-sweep fits of χ² 5 put tunes a step or two off narrow dips
+	// that the verify, through a coupler of poor directivity, could not tell (a judgement).
+	maxDownChi2 float64
+	// maxCentreGap: the readings either side of the fitted centre may be at most this many
+	// half-widths apart, so that each side has a reading above its half-power point, where the
+	// curve is steepest and says most about the centre; a centre that falls in a wider gap (a
+	// reading late just as the sweep crossed the dip) rests on the curve's shape alone and is
+	// swept again. Two: five times the widest spacing a sweep plans (maxSpacing).
+	maxCentreGap float64
+	// centreSpacings and centreMinGap (steps): nor may they be more than centreSpacings of the
+	// sweep's planned spacing apart (three readings missing in a row, which a loaded board's
+	// late readings make now and then, but not right at the centre of a good sweep), nor less
+	// than centreMinGap: two whole steps, one step's readings missing (a judgement).
+	centreSpacings float64
+	centreMinGap   float64
+	// wideUncertainty: a dip found wider than planned (widerError) is swept again around its
+	// fitted centre, taken to be within this many of its half-widths: a centre fitted from one
+	// flank can be off by a good part of the width (a judgement).
+	wideUncertainty float64
 }
 
 // fitParams shape the resonance fit and what it accepts.
@@ -236,9 +324,12 @@ type fitParams struct {
 	minFar float64
 	maxFar float64
 	// minBottom and maxBottom bound the fitted |Γ|² at the centre: a little below zero is
-	// noise, above 0.9 there is hardly a dip (a judgement).
-	minBottom float64
-	maxBottom float64
+	// noise, above 0.9 there is hardly a dip (a judgement). The rational fit allows a bottom
+	// down to bottomSigmas times the absolute noise its residuals near the dip show, where that
+	// is lower: three standard deviations.
+	minBottom    float64
+	maxBottom    float64
+	bottomSigmas float64
 	// minDepth: the fallback Lorentzian needs a dip deeper than this (the same as
 	// sweepParams.minDepth), and peakShare is the part of the peak it fits (the reciprocal's
 	// error grows as 1/A², so the tails would only add noise; 0.3 is a judgement).
@@ -247,13 +338,20 @@ type fitParams struct {
 	// minimumSpan, steps: the last-resort minimum averages the readings within this of the
 	// lowest one.
 	minimumSpan float64
+	// placement, steps, is the standard error of a reading's position in the fit's χ²: a
+	// reading taken on the move is placed at the whole step the motor stood on (±0.5, 0.29
+	// rms), and the drive's pulses keep their plan only roughly (0.5, a judgement).
+	placement float64
 }
 
 // verifyParams judge the reading at the final position.
 type verifyParams struct {
-	// readings averaged at the first verify; each retry doubles them. Three: a verify is a
-	// check, not a measurement, and the fit already averaged many.
+	// readings averaged at the first verify, at most; each retry doubles them. Three: a verify
+	// is a check, not a measurement, and the fit already averaged many.
 	readings int
+	// minReadings: the fewest; one, where the noise is low enough that more would not tighten
+	// the check (verifyReadings).
+	minReadings int
 	// maxResweeps is how many slower sweeps a failed verify may ask for before the loop is
 	// reported not tuned.
 	maxResweeps int
@@ -309,6 +407,20 @@ type playParams struct {
 	spreadWidths float64
 	spreadSteps  float64
 	spreadShare  float64
+	// minCore is the fewest readings within ±w each of its sweeps takes, where the noise asks
+	// for fewer: ten, twice a tune's, as a calibration measures a difference of two centres
+	// once, to be kept for months, and must not be upset by a reading late across a dip (a
+	// judgement).
+	minCore float64
+	// centreNoise, steps, is the standard error of the centre each of its sweeps is sized for,
+	// whatever the dip's width (a tune's grows with the width): the play then comes out to
+	// about as much, fine enough to turn a dip found sweeping down into final-approach
+	// coordinates on all but the narrowest dips (playKnown; a judgement).
+	centreNoise float64
+	// storedSigma, steps, is the standard error assumed of a play installed from a stored
+	// calibration: rounded to a whole step (±0.5), and the gear may have worn since (a
+	// judgement).
+	storedSigma float64
 	// maxEffort is the most readings the sweeps are repeated with, as a multiple of the first.
 	maxEffort int
 }
@@ -344,6 +456,15 @@ type rfParams struct {
 	// readingGuess is the reading time assumed before the first reading: two conversions of a
 	// small converter (from memory); the median of the readings replaces it at once.
 	readingGuess time.Duration
+	// keyPoll is how often the tuner polls a move it follows itself (keying during it, or
+	// letting a sweep run out), and the least pace of the readings that wait for a key-up: the
+	// axis's own poll (2 ms, the station's), well within a key-up time of tens of ms.
+	keyPoll time.Duration
+	// rekeyGain is the least carrier time that dropping the carrier for a move must save (the
+	// move's time less the key-up time) to be worth keying again: a drop is one more relay
+	// cycle for the radio and two more commands on a link that may fail, worth it only for
+	// some ten readings' carrier (a judgement).
+	rekeyGain time.Duration
 	// unkeyTimeout bounds one unkey attempt; unkeyAttempts are made, unkeyPause apart: a CAT
 	// link answers within a second or so, and a dropped command is usually a one-off (from
 	// memory).
@@ -368,7 +489,14 @@ func defaultParams() params {
 	return params{
 		noise: noiseParams{
 			readings:     8,
+			fewReadings:  3,
+			memoryWeight: 7,
+			memoryAge:    time.Hour,
+			poolLevels:   math.Ln2,
+			change:       2,
 			minCarried:   3,
+			clippedRel:   0.03,
+			clippedAbs:   0.03,
 			relFloor:     relFloor,
 			absFloor:     2e-4,
 			logFloor:     1e-6,
@@ -383,6 +511,7 @@ func defaultParams() params {
 			maxAveraging:          16,
 			windowSigmas:          3,
 			windowWidths:          3,
+			startSigmas:           1,
 			growth:                3,
 			hitSlack:              2,
 			hitReadings:           2,
@@ -395,33 +524,43 @@ func defaultParams() params {
 			baselineWarmup:        5,
 			baselineKeep:          8,
 			inDipShare:            0.5,
+			holeWidths:            2.5,
+			holeSpacings:          2,
+			holeRounds:            2,
 			calibratedUncertainty: 2,
 		},
 		sweep: sweepParams{
-			marginWidths:     2.2,
-			directSigmas:     3,
-			directSlack:      1,
-			directWidths:     4,
-			centreFactor:     1.5,
-			widthCentreNoise: 0.008,
-			minCore:          10,
-			maxCore:          80,
-			minSpacing:       0.05,
-			maxSpacing:       0.25,
-			minSpeed:         5,
-			deepShare:        0.3,
-			deepSigmas:       6,
-			passedShare:      0.2,
-			passedWidths:     2,
-			minDepth:         minDepth,
-			edgeWidths:       1,
-			followWidths:     2,
-			uncertainWidths:  2,
-			maxFollows:       2,
-			retryGrowth:      2,
-			maxEffort:        4,
-			minMinimum:       3,
-			maxGap:           0.5,
+			marginWidths:    1.8,
+			directSigmas:    3,
+			directSlack:     1,
+			directWidths:    4,
+			centreFactor:    1.5,
+			swrBudget:       0.05,
+			centreSigmas:    3,
+			minCore:         5,
+			maxCore:         80,
+			minSpacing:      0.05,
+			maxSpacing:      0.4,
+			minSpeed:        5,
+			deepShare:       0.3,
+			deepSigmas:      6,
+			passedShare:     0.3,
+			passedWidths:    1.6,
+			minDepth:        minDepth,
+			edgeWidths:      1,
+			followWidths:    2,
+			uncertainWidths: 2,
+			maxFollows:      2,
+			retryGrowth:     2,
+			maxEffort:       4,
+			minMinimum:      3,
+			maxGap:          0.5,
+			maxCentreGap:    2,
+			centreSpacings:  4,
+			centreMinGap:    2,
+			wideUncertainty: 1,
+			maxChi2:         6,
+			maxDownChi2:     3,
 		},
 		fit: fitParams{
 			minSamples:    8,
@@ -442,12 +581,15 @@ func defaultParams() params {
 			maxFar:        1.6,
 			minBottom:     -0.02,
 			maxBottom:     0.9,
+			bottomSigmas:  3,
 			minDepth:      minDepth,
 			peakShare:     0.3,
 			minimumSpan:   1,
+			placement:     0.5,
 		},
 		verify: verifyParams{
 			readings:      3,
+			minReadings:   1,
 			maxResweeps:   1,
 			resweepSlack:  2,
 			resweepEffort: 2,
@@ -473,6 +615,9 @@ func defaultParams() params {
 			spreadWidths: 2,
 			spreadSteps:  2,
 			spreadShare:  0.25,
+			minCore:      10,
+			centreNoise:  0.05,
+			storedSigma:  0.5,
 			maxEffort:    2,
 		},
 		motion: motionParams{
@@ -486,6 +631,8 @@ func defaultParams() params {
 			carrierPoll:   20 * time.Millisecond,
 			lostReadings:  3,
 			readingGuess:  3 * time.Millisecond,
+			keyPoll:       2 * time.Millisecond,
+			rekeyGain:     20 * time.Millisecond,
 			unkeyTimeout:  2 * time.Second,
 			unkeyAttempts: 3,
 			unkeyPause:    100 * time.Millisecond,

@@ -32,13 +32,17 @@ func (p *op) reference(pred Prediction) (dipFit, error) {
 		return dipFit{}, err
 	}
 	lo, hi := ax.SoftLimits()
-	c, err := p.coarse((float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2, pred.Width, noise)
+	c, err := p.coarse((float64(lo)+float64(hi))/2, (float64(hi)-float64(lo))/2, pred.Width, noise, 0)
 	if err != nil {
 		return dipFit{}, err
 	}
 	fit, err := p.refineAround(c, pred.Width, noise)
 	if err != nil {
 		return dipFit{}, err
+	}
+	if fit.doubt != "" {
+		// (never a reference from a fit that is not trusted)
+		return dipFit{}, fmt.Errorf("%w: %s", ErrNoDip, fit.doubt)
 	}
 	ok = true
 	shift := motion.Steps(math.Round(fit.Centre - pred.Pos))

@@ -9,13 +9,32 @@ import (
 
 	"periph.io/x/conn/v3/physic"
 
+	"github.com/tankd/tankd/controller/motion"
 	"github.com/tankd/tankd/controller/sense"
 )
 
-// carrierOn makes sure there is a carrier for the RF stages: it keys the transmitter when
-// allowed, or waits for the operator's carrier, checking the coupler. From here until
-// carrierOff the guard watches the radio's frequency and counts the carrier time.
+// carrierOn makes sure there is a carrier for the RF stages, with the motor where it stands:
+// startRF, then awaitCarrier.
 func (p *op) carrierOn() error {
+	if err := p.startRF(); err != nil {
+		return err
+	}
+	return p.awaitCarrier()
+}
+
+// startRF begins the RF stages: it checks that the radio is on the frequency being tuned and
+// keys the transmitter when allowed (an operator's carrier is awaited instead). From here until
+// carrierOff the guard watches the radio's frequency and counts the carrier time.
+func (p *op) startRF() error {
+	if err := p.armRF(); err != nil {
+		return err
+	}
+	return p.key()
+}
+
+// armRF begins the RF stages without keying yet: the first reading keys (ensureCarrier), or the
+// sweep that begins with its own run-up keys on the way (sweepRead).
+func (p *op) armRF() error {
 	t := p.t
 	if err := p.to(AwaitingCarrier); err != nil {
 		return err
@@ -30,19 +49,58 @@ func (p *op) carrierOn() error {
 		return err
 	}
 	if t.o.Transmit && !p.keyed {
-		// The unkey is owed from the attempt on: the radio may have keyed before its link
-		// failed to say so.
-		p.keyed = true
-		p.g.rfOn(t.d.Clock.Now())
-		if err := t.d.Transmitter.Key(p.ctx, t.o.TunePower); err != nil {
-			return fmt.Errorf("key the tune carrier: %w", err)
-		}
+		p.dropped = true // (keyed before the first reading)
 	}
+	return nil
+}
+
+// key keys the tune carrier, if the tuner may and has not. The unkey is owed from the attempt on
+// (the radio may have keyed before its link failed to say so), and the carrier time counts from
+// it: the key-up time that follows is carrier time too.
+func (p *op) key() error {
+	t := p.t
+	if !t.o.Transmit || p.keyed {
+		return nil
+	}
+	if err := p.check(); err != nil {
+		return err // (the radio may have moved while the carrier was down)
+	}
+	again := p.hasKeyed
+	if got, ok := t.radioFrequency(); ok && again && got != p.keyFreq {
+		// Keying again is keying anew: only exactly where the carrier was, although a move
+		// within rfParams.offFrequency would not have ended the tune with the carrier on.
+		return fmt.Errorf("%w: the radio went from %v to %v while the carrier was down", ErrFrequencyChanged, p.keyFreq, got)
+	} else if ok && !again {
+		p.keyFreq = got
+	}
+	p.hasKeyed = true
+	p.keyed, p.dropped, p.keyUpSeen = true, false, false
+	p.keyedAt = t.d.Clock.Now()
+	p.g.rfOn(p.keyedAt)
+	if err := t.d.Transmitter.Key(p.ctx, t.o.TunePower); err != nil {
+		if again {
+			// the carrier the tune had cannot be had again: as if it had gone on the air
+			return fmt.Errorf("%w: it could not be keyed again: %w", ErrCarrierLost, err)
+		}
+		return fmt.Errorf("key the tune carrier: %w", err)
+	}
+	return nil
+}
+
+// awaitCarrier waits for forward power, checking the coupler, up to Options.CarrierWait. After
+// the tuner's own key it reads on at once (the carrier comes a key-up time after the key) and
+// measures that key-up time, which times the next keys; an operator's carrier is polled for.
+// A carrier that does not come back after a key in the middle of a tune was lost.
+func (p *op) awaitCarrier() error {
+	t := p.t
+	own := t.o.Transmit && p.keyed
 	until := t.d.Clock.Now().Add(t.o.CarrierWait)
+	waited := false
 	for {
 		if err := p.check(); err != nil {
 			return err
 		}
+		began := t.d.Clock.Now()
 		r, err := t.d.Sensor.Read(p.ctx)
 		if err != nil {
 			return fmt.Errorf("read the coupler: %w", err)
@@ -52,16 +110,89 @@ func (p *op) carrierOn() error {
 			return fmt.Errorf("%w: %v", ErrOverPower, r.Forward)
 		}
 		if r.Forward >= t.o.MinForward {
-			p.g.rfOn(r.At)
+			if own && !p.keyUpSeen {
+				p.keyUpSeen = true
+				// Exact when the carrier came between two readings; an upper bound when it was
+				// there at the first, which is only taken if nothing better is known.
+				if up := r.At.Sub(p.keyedAt); waited || t.keyUp == 0 {
+					t.keyUp = max(up, time.Nanosecond)
+				}
+			}
+			p.lost = 0
+			p.g.rfOn(r.At) // an operator's carrier counts from its first reading
+			if st := t.d.Axis.Snapshot(); !st.Moving {
+				p.spare = &spareReading{r: r, pos: st.Position}
+			}
 			return p.check()
 		}
+		waited = true
 		if !t.d.Clock.Now().Before(until) {
+			if p.keyedTwice {
+				return fmt.Errorf("%w: no forward power within %v of the key (forward %v, need %v)", ErrCarrierLost, t.o.CarrierWait, r.Forward, t.o.MinForward)
+			}
 			return fmt.Errorf("%w within %v (forward %v, need %v)", ErrNoCarrier, t.o.CarrierWait, r.Forward, t.o.MinForward)
 		}
-		if err := t.d.Clock.Sleep(p.ctx, t.par.rf.carrierPoll); err != nil {
+		pause := t.par.rf.carrierPoll
+		if own {
+			// read on: only pace a converter that takes no time
+			pause = t.par.rf.keyPoll - t.d.Clock.Now().Sub(began)
+		}
+		if err := t.d.Clock.Sleep(p.ctx, pause); err != nil {
 			return err
 		}
 	}
+}
+
+// spareReading is the reading that found the carrier, kept for the next reading the operation
+// takes if the motor has not moved since: it is as good as one taken then.
+type spareReading struct {
+	r   sense.Reading
+	pos motion.Steps
+}
+
+// keyLead is how long before the carrier is needed the tuner keys: the key-up time it measured
+// (nothing until it has measured one: the first key is made where the carrier is needed, and
+// timed).
+func (t *Tuner) keyLead() time.Duration { return t.keyUp }
+
+// dropCarrier unkeys in the middle of the RF stages, for a move that needs no reading: the
+// carrier time stops counting, the radio's frequency is still watched, and the next reading
+// keys again (ensureCarrier). It does nothing with an operator's carrier, which the tuner does
+// not control.
+func (p *op) dropCarrier() error {
+	if !p.keyed {
+		return nil
+	}
+	p.g.rfPause(p.t.d.Clock.Now())
+	if err := p.unkey(); err != nil {
+		return err
+	}
+	p.dropped = true
+	return nil
+}
+
+// rekey keys again after dropCarrier (or for the first time after armRF), at once;
+// awaitCarrier then waits for the carrier.
+func (p *op) rekey() error {
+	if !p.dropped {
+		return nil
+	}
+	p.keyedTwice = p.hasKeyed
+	return p.key()
+}
+
+// ensureCarrier makes sure the carrier is there for a reading: keyed again if it was dropped,
+// and waited for if it has not been seen since the key.
+func (p *op) ensureCarrier() error {
+	if p.dropped {
+		if err := p.rekey(); err != nil {
+			return err
+		}
+	}
+	if p.keyed && !p.keyUpSeen {
+		return p.awaitCarrier()
+	}
+	return nil
 }
 
 func absFreq(f physic.Frequency) physic.Frequency {
@@ -73,12 +204,18 @@ func absFreq(f physic.Frequency) physic.Frequency {
 
 // carrierOff ends the RF stages: it drops the tune carrier if the tuner keyed (or tried to key)
 // it, and books the RF time. It runs however the operation ends, so it does not honour
-// cancellation. An unkey that fails is retried; if every attempt fails the carrier may still be
-// on, and the tuner latches a fault that withdraws its permission to transmit until a reset
-// manages to unkey.
+// cancellation.
 func (p *op) carrierOff() error {
+	p.res.RFTime = p.g.rfOff(p.t.d.Clock.Now())
+	p.dropped = false
+	return p.unkey()
+}
+
+// unkey drops the tune carrier if a key is owed. An unkey that fails is retried; if every
+// attempt fails the carrier may still be on, and the tuner latches a fault that withdraws its
+// permission to transmit until a reset manages to unkey.
+func (p *op) unkey() error {
 	t := p.t
-	p.res.RFTime = p.g.rfOff(t.d.Clock.Now())
 	if !p.keyed {
 		return nil
 	}
@@ -113,16 +250,27 @@ func (p *op) read(stage string) (sample, sense.Reading, error) {
 	if err := p.check(); err != nil {
 		return sample{}, sense.Reading{}, err
 	}
-	start := t.d.Clock.Now()
-	r, err := t.d.Sensor.Read(p.ctx)
-	if err != nil {
-		return sample{}, r, fmt.Errorf("read the coupler: %w", err)
+	if err := p.ensureCarrier(); err != nil {
+		return sample{}, sense.Reading{}, err
 	}
-	p.noteReadingTime(t.d.Clock.Now().Sub(start))
-	if err := p.check(); err != nil {
-		return sample{}, r, err // the radio may have moved while the converter worked
+	var r sense.Reading
+	if sp := p.spare; sp != nil && !t.d.Axis.Snapshot().Moving && t.d.Axis.Position() == sp.pos {
+		// the reading that found the carrier, with the motor where it still stands
+		r = sp.r
+		p.spare = nil
+	} else {
+		p.spare = nil
+		start := t.d.Clock.Now()
+		var err error
+		if r, err = t.d.Sensor.Read(p.ctx); err != nil {
+			return sample{}, r, fmt.Errorf("read the coupler: %w", err)
+		}
+		p.noteReadingTime(t.d.Clock.Now().Sub(start))
+		if err := p.check(); err != nil {
+			return sample{}, r, err // the radio may have moved while the converter worked
+		}
+		p.res.Readings++
 	}
-	p.res.Readings++
 	if _, _, err := t.d.Axis.Poll(); err != nil {
 		return sample{}, r, err
 	}

@@ -16,38 +16,49 @@ type coarseHit struct {
 
 // coarse scans the window centre±half at a speed that puts ScanDensity readings within a dip
 // half-width, stopping as soon as a dip has clearly been passed; if the window holds none it
-// grows, up to the whole travel, scanning only what it has not yet seen.
-func (p *op) coarse(centre, half, w float64, noise noiseLevel) (coarseHit, error) {
+// grows, up to the whole travel, scanning only what it has not yet seen. A motor inside the
+// first window scans toward first before the rest (0: toward the nearer end).
+func (p *op) coarse(centre, half, w float64, noise noiseLevel, first motion.Direction) (coarseHit, error) {
 	t := p.t
 	k := &t.par.scan
 	if err := p.to(Scanning); err != nil {
 		return coarseHit{}, err
 	}
-	spacing := math.Max(w/t.o.ScanDensity, k.minSpacing)
 	// A dip must stand clear of the noise: a rise in the absorbed share 1−|Γ|² of several
 	// standard deviations (off the dip the noise is the absolute noise at |Γ|² near one). Where
 	// the noise is so high that a single reading could not show even a deep dip that clearly,
 	// the scan slows down and averages n readings for every spacing it moves.
 	n, sd := noise.averaging(k)
 	thr := math.Max(k.minThreshold, k.sigmas*sd/math.Sqrt(float64(n)))
-	speed := spacing / (float64(n) * p.readingTime().Seconds())
+	speed := p.scanSpeed(w, n)
 	if n > 1 {
 		t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("noisy readings: scanning with %d readings averaged", n)})
 	}
 	amin, amax := p.t.d.Axis.SoftLimits()
 	slo, shi := math.NaN(), math.NaN() // what has been scanned
 	for {
-		lo, hi := p.clampPos(centre-half), p.clampPos(centre+half)
-		for _, seg := range p.segments(lo, hi, slo, shi) {
-			hit, ok, err := p.scanSegment(seg[0], seg[1], w, speed, thr, n)
-			if err != nil {
-				return coarseHit{}, err
+		lo, hi := p.scanWindow(centre, half)
+		segs := p.segments(lo, hi, slo, shi, w, first)
+		for round := 0; len(segs) > 0; round++ {
+			var holes [][2]float64
+			for _, seg := range segs {
+				hit, ok, gaps, err := p.scanSegment(seg[0], seg[1], w, speed, thr, n)
+				if err != nil {
+					return coarseHit{}, err
+				}
+				if ok {
+					t.emit(Event{Kind: KindDip, Pos: hit.pos, Freq: p.res.Freq,
+						Text: fmt.Sprintf("dip near %.0f", hit.pos)})
+					return hit, nil
+				}
+				holes = append(holes, gaps...)
 			}
-			if ok {
-				hit.uncertainty = spacing + k.hitSlack + p.backlashUncertainty()
-				t.emit(Event{Kind: KindDip, Pos: hit.pos, Freq: p.res.Freq,
-					Text: fmt.Sprintf("dip near %.0f", hit.pos)})
-				return hit, nil
+			// Stretches the readings skipped (late readings on a busy computer) may hide the dip:
+			// they are scanned again, before the window grows.
+			segs = nil
+			if round < k.holeRounds && len(holes) > 0 {
+				segs = p.holeSegments(holes)
+				t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%d stretch(es) the readings skipped: scanning them again", len(holes))})
 			}
 		}
 		if lo <= float64(amin) && hi >= float64(amax) {
@@ -59,17 +70,59 @@ func (p *op) coarse(centre, half, w float64, noise noiseLevel) (coarseHit, error
 		slo, shi = lo, hi
 		half = k.growth*half + w
 		p.res.Widened++
-		t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("no dip yet: widening the scan to %.0f–%.0f",
-			p.clampPos(centre-half), p.clampPos(centre+half))})
+		lo, hi = p.scanWindow(centre, half)
+		t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("no dip yet: widening the scan to %.0f–%.0f", lo, hi)})
 		if err := p.to(Scanning); err != nil {
 			return coarseHit{}, err
 		}
 	}
 }
 
+// scanWindow is the span centre±half, in whole steps within the soft limits.
+func (p *op) scanWindow(centre, half float64) (lo, hi float64) {
+	return math.Floor(p.clampPos(centre - half)), math.Ceil(p.clampPos(centre + half))
+}
+
+// scanSpeed is the coarse scan's speed for a dip of half-width w: Options.ScanDensity readings
+// (means of n readings) within a half-width.
+func (p *op) scanSpeed(w float64, n int) float64 {
+	spacing := math.Max(w/p.t.o.ScanDensity, p.t.par.scan.minSpacing)
+	return spacing / (float64(n) * p.readingTime().Seconds())
+}
+
+// hitUncertainty is how far from the dip a coarse hit may lie, found on a scan for a dip of
+// half-width w moving in dir: the scan's spacing, the placement of readings between polls, and,
+// scanning down, the play's uncertainty.
+func (p *op) hitUncertainty(w float64, dir motion.Direction) float64 {
+	k := &p.t.par.scan
+	u := math.Max(w/p.t.o.ScanDensity, k.minSpacing) + k.hitSlack
+	if dir == motion.Down {
+		u += p.backlashUncertainty()
+	}
+	return u
+}
+
+// holeSegments plans scans of the stretches a scan's readings skipped, each widened by a run-up
+// either side (it may be scanned the other way, where the play moves the dip), nearest first.
+func (p *op) holeSegments(holes [][2]float64) [][2]float64 {
+	pos := float64(p.t.d.Axis.Position())
+	r := float64(p.t.runUp())
+	out := make([][2]float64, 0, len(holes))
+	for _, h := range holes {
+		a, b := p.clampPos(math.Min(h[0], h[1])-r), p.clampPos(math.Max(h[0], h[1])+r)
+		if math.Abs(pos-b) < math.Abs(pos-a) {
+			a, b = b, a
+		}
+		out = append(out, [2]float64{a, b})
+	}
+	sort.Slice(out, func(i, j int) bool { return math.Abs(pos-out[i][0]) < math.Abs(pos-out[j][0]) })
+	return out
+}
+
 // segments plans the scans that cover [lo, hi] minus the already scanned [slo, shi] (NaN when
-// nothing is), starting at the end nearest the motor.
-func (p *op) segments(lo, hi, slo, shi float64) [][2]float64 {
+// nothing is). The first window is scanned from the motor: across from an end, or, from inside,
+// toward first and then across the rest (toward the nearer end first where first is 0).
+func (p *op) segments(lo, hi, slo, shi, w float64, first motion.Direction) [][2]float64 {
 	pos := float64(p.t.d.Axis.Position())
 	if math.IsNaN(slo) {
 		switch {
@@ -77,11 +130,15 @@ func (p *op) segments(lo, hi, slo, shi float64) [][2]float64 {
 			return [][2]float64{{lo, hi}}
 		case pos >= hi:
 			return [][2]float64{{hi, lo}}
-		case pos-lo < hi-pos:
-			return [][2]float64{{pos, lo}, {lo, hi}}
-		default:
-			return [][2]float64{{pos, hi}, {hi, lo}}
 		}
+		// From inside, the rest of the window is scanned back from a little beyond where the
+		// motor began (a dip there, only partly seen, is seen whole), not across the stretch
+		// already scanned again: the motor gets there at full speed.
+		back := p.t.par.scan.hitSpanWidths * w
+		if first == motion.Down || first == 0 && pos-lo < hi-pos {
+			return [][2]float64{{pos, lo}, {math.Max(pos-back, lo), hi}}
+		}
+		return [][2]float64{{pos, hi}, {math.Min(pos+back, hi), lo}}
 	}
 	var below, above [][2]float64
 	if lo < slo {
@@ -97,8 +154,9 @@ func (p *op) segments(lo, hi, slo, shi float64) [][2]float64 {
 }
 
 // scanSegment moves to from and scans to to, watching for a dip; n readings are averaged for
-// each point judged against the threshold thr.
-func (p *op) scanSegment(from, to, w, speed, thr float64, n int) (coarseHit, bool, error) {
+// each point judged against the threshold thr. With no dip found it returns the stretches its
+// readings skipped.
+func (p *op) scanSegment(from, to, w, speed, thr float64, n int) (coarseHit, bool, [][2]float64, error) {
 	t := p.t
 	ax := t.d.Axis
 	dir := motion.Up
@@ -115,28 +173,32 @@ func (p *op) scanSegment(from, to, w, speed, thr float64, n int) (coarseHit, boo
 	}
 	if ax.Position() != start {
 		if err := p.move("coarse", start, passMove); err != nil {
-			return coarseHit{}, false, err
+			return coarseHit{}, false, nil, err
 		}
 	}
 	k := &t.par.scan
 	s := &scanWatch{p: p, k: k, from: from, dir: dir, b: p.backlashEstimate(), w: w, speed: speed, thr: thr,
-		posMax: math.NaN(), lastAbove: math.Inf(-1), lastBase: math.Inf(1),
+		posMax: math.NaN(), lastAbove: math.Inf(-1), lastBase: math.Inf(1), last: math.NaN(),
 		base: newMedian(k.baselineReadings, k.baselineWarmup, p.baseline), avg: newMean(n),
 		spacing: spacingOf(speed, p) * float64(n)}
-	stopped, err := p.sweepRead("coarse", start, e, speed, s)
+	stopped, err := p.sweepRead("coarse", start, f, e, speed, s)
 	if err != nil {
-		return coarseHit{}, false, err
+		return coarseHit{}, false, nil, err
 	}
+	hit := coarseHit{pos: s.upEquiv(s.posMax), uncertainty: p.hitUncertainty(w, dir)}
 	if stopped {
-		return coarseHit{pos: s.upEquiv(s.posMax)}, true, nil
+		return hit, true, nil, nil
 	}
 	if s.base.n > k.baselineKeep {
 		p.baseline = s.base.value()
 	}
 	if s.above >= k.hitReadings {
-		return coarseHit{pos: s.upEquiv(s.posMax)}, true, nil
+		return hit, true, nil, nil
 	}
-	return coarseHit{}, false, nil
+	if !math.IsNaN(s.last) && math.Abs(float64(e)-s.last) > s.hole() {
+		s.holes = append(s.holes, [2]float64{s.last, float64(e)})
+	}
+	return coarseHit{}, false, s.holes, nil
 }
 
 // scanWatch judges a coarse scan's readings. A dip is a few readings above the threshold within
@@ -164,6 +226,9 @@ type scanWatch struct {
 	above        int     // means above the threshold, close together
 	lastAbove    float64 // where the last of them was
 	lastBase     float64 // where base was last fed
+
+	last  float64      // where the latest reading past from was (NaN: none yet)
+	holes [][2]float64 // stretches between readings wide enough to hide a dip
 }
 
 // take implements sweepJudge.
@@ -171,7 +236,18 @@ func (s *scanWatch) take(r sample) verdict {
 	k := s.k
 	// Readings before from belong to the run-up (and one that could not be placed at all is
 	// not ahead of it either); a spot already swept finely is not scanned again.
-	if !((r.Pos-s.from)*float64(s.dir) >= 0) || s.p.rejected(s.upEquiv(r.Pos)) {
+	if !((r.Pos-s.from)*float64(s.dir) >= 0) {
+		return readOn
+	}
+	prev := s.last
+	if math.IsNaN(prev) {
+		prev = s.from
+	}
+	if math.Abs(r.Pos-prev) > s.hole() {
+		s.holes = append(s.holes, [2]float64{prev, r.Pos})
+	}
+	s.last = r.Pos
+	if s.p.rejected(s.upEquiv(r.Pos)) {
 		return readOn
 	}
 	m := s.avg.add(r)
@@ -199,6 +275,11 @@ func (s *scanWatch) take(r sample) verdict {
 		return stopNow
 	}
 	return readOn
+}
+
+// hole is the least distance between readings that leaves a stretch where a dip may hide.
+func (s *scanWatch) hole() float64 {
+	return math.Max(s.k.holeWidths*s.w, s.k.holeSpacings*spacingOf(s.speed, s.p))
 }
 
 // upEquiv converts a position read on the scan to final-approach coordinates.

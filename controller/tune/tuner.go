@@ -196,9 +196,12 @@ type Result struct {
 	Finished time.Time
 	RFTime   time.Duration // carrier time the operation needed
 
-	Prediction    *Prediction
-	Prepositioned bool         // moved to the prediction before any RF
-	PrePos        motion.Steps // where the pre-position went
+	Prediction *Prediction
+	// Prepositioned: the map's prediction placed the motor before any RF: moved there (a tune
+	// without RF), or straight to the search's start from it (with RF; the motor does not stop
+	// at PrePos then, and the KindPositioned event says so).
+	Prepositioned bool
+	PrePos        motion.Steps // where the pre-position went, or would have
 	Pos           motion.Steps // final position
 	SWR           float64      // verified SWR at Pos (0 without RF)
 	Fit           *FitReport
@@ -233,7 +236,8 @@ var (
 	// ErrCarrierLimit: the operation would have needed more carrier time than allowed.
 	ErrCarrierLimit = errors.New("carrier time limit reached")
 	// ErrNotTuned: the verified SWR stayed above the target, or above what the fitted dip
-	// promised, after a second, slower sweep. Nothing is learned.
+	// promised, after a second, slower sweep; or the dip's own bottom reads above the target,
+	// and the loop is left at the dip. Nothing is learned.
 	ErrNotTuned = errors.New("the loop could not be verified in tune")
 	// ErrUnkeyFailed: the transmitter could not be unkeyed. It latches a fault and withdraws
 	// the tuner's permission to transmit until a reset succeeds in unkeying.
@@ -263,6 +267,20 @@ type Tuner struct {
 	// confirmed: the position was found again (homed, or referenced by the operator) since the
 	// last surprise, so a surprise that repeats now is the map's error, not the position's.
 	confirmed bool
+	// keyUp is the radio's key-up time as last measured: from the key to forward power at the
+	// coupler (0: not measured yet). It times the keys, and decides whether a re-key pays.
+	keyUp time.Duration
+	// noise is the reading noise last measured, pooled with the next measurement (noise.go).
+	noise noiseMemory
+	// play is the gear play as last measured (to a fraction of a step where this tuner measured
+	// it, the whole steps of a stored calibration otherwise) and playSigma its standard error:
+	// they turn a dip found sweeping down into final-approach coordinates (valid once
+	// calibrated).
+	play, playSigma float64
+	// playSpeed is the fastest of the sweeps that measured play (0: not measured here): a
+	// sweep down faster than that is not turned into final-approach coordinates by it
+	// (playKnown).
+	playSpeed float64
 }
 
 // New checks the resources and options.
@@ -357,15 +375,30 @@ type op struct {
 	ctx     context.Context // the guard; its Err reports any breach
 	g       *guard
 	res     *Result
-	keyed   bool         // a key was attempted: an unkey is owed
-	lost    int          // consecutive readings without carrier
-	rejects [][2]float64 // spans where a coarse hit proved false
+	keyed   bool      // a key was attempted: an unkey is owed
+	keyedAt time.Time // when the latest key was made
+	// keyFreq is the radio's frequency at the first key: a key again after a drop is made
+	// only there
+	keyFreq physic.Frequency
+	// dropped: the carrier is down in the middle of the RF stages (a move that needs no
+	// reading, or not keyed yet); the next reading keys. hasKeyed: a key was made this
+	// operation; keyedTwice: and another after it.
+	dropped, hasKeyed, keyedTwice bool
+	keyUpSeen                     bool          // the carrier of the latest key has been seen
+	spare                         *spareReading // the reading that found the carrier, not yet used
+	lost                          int           // consecutive readings without carrier
+	rejects                       [][2]float64  // spans where a coarse hit proved false
 	// baseline is the |Γ|² the coupler reads off the dip (1 but for its leakage)
 	baseline float64
 	readDurs [readingWindow]time.Duration // the latest readings' durations, for readingTime
 	nRead    int
 	noise    noiseLevel // the latest measured reading noise
-	done     bool       // finish has run
+	// minCore and centreNoise: a calibration's floor of the fine sweep's readings within ±w, and
+	// the standard error of the centre its sweeps are sized for (0: a tune's)
+	minCore, centreNoise float64
+	// calSpeed is the fastest a calibration's sweeps have run (Tuner.playSpeed)
+	calSpeed float64
+	done     bool // finish has run
 }
 
 func (t *Tuner) begin(ctx context.Context, f physic.Frequency) *op {
@@ -552,6 +585,7 @@ func (t *Tuner) Calibrated() bool { return t.calibrated }
 func (t *Tuner) UseBacklash(b motion.Steps) {
 	t.d.Axis.UseBacklash(b)
 	t.calibrated = true
+	t.play, t.playSigma, t.playSpeed = float64(max(b, 0)), t.par.play.storedSigma, 0
 }
 
 // temperature reads the thermometer, if there is one.

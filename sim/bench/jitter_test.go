@@ -78,13 +78,18 @@ func jitterRun(t *testing.T, station string, seed uint64, j Jitter) (log []strin
 			}
 		}
 		if op.kind != "home" && (res.Outcome == tune.Tuned || res.Outcome == tune.Calibrated) {
-			_, best, err := r.Station.Best(Hz(f))
+			bestPos, best, err := r.Station.Best(Hz(f))
 			if err != nil {
 				t.Fatal(err)
 			}
 			got := r.Station.TrueSWR(Hz(f))
 			line += fmt.Sprintf(", true SWR %.2f, best %.2f", got, best)
-			if got > best+SuccessTolerance {
+			// Jitter may cost the last step of precision, not more: on a dip only a few steps
+			// wide one whole step can be worth more than the bench's 0.1 of SWR (the bench
+			// counts those as misses), so a result no worse than the best's neighbours is
+			// accepted here; anything further off is a tune accepted from a doubtful fit.
+			neighbours := max(r.Station.SWRAt(Hz(f), float64(bestPos-1)), r.Station.SWRAt(Hz(f), float64(bestPos+1)))
+			if got > max(best+SuccessTolerance, neighbours+1e-9) {
 				unsafe = append(unsafe, line)
 			}
 			if res.Fit != nil {

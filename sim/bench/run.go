@@ -262,7 +262,9 @@ func runScenario(ctx context.Context, sc Scenario, stepped bool) ([]caseResult, 
 	obs := tune.ObserverFunc(func(e tune.Event) {
 		switch e.Kind {
 		case tune.KindPositioned:
-			pre = r.Station.TrueSWR(Hz(e.Freq))
+			// where the prediction put the motor, stopped there or not (straight to the
+			// search's start): the SWR there as an up-approach leaves it
+			pre = positionedSWR(r, e)
 		case tune.KindPrediction:
 			probe.observe(r, e)
 		}
@@ -306,7 +308,7 @@ func runScenario(ctx context.Context, sc Scenario, stepped bool) ([]caseResult, 
 			var r *Rig
 			r, err := prepared(ctx, sc, tune.ObserverFunc(func(e tune.Event) {
 				if e.Kind == tune.KindPositioned {
-					r.Station.TrueSWR(Hz(e.Freq))
+					positionedSWR(r, e)
 				}
 			}), func(rig *Rig) { r = rig })
 			if err != nil {
@@ -540,4 +542,13 @@ func quantile(v []float64, q float64) float64 {
 		return s[len(s)-1]
 	}
 	return s[i] + (s[i+1]-s[i])*(x-float64(i))
+}
+
+// positionedSWR is the true SWR at the position a KindPositioned event reports (controller
+// coordinates, turned into the mechanism's by the frame as it stands), as an up-approach
+// leaves it: the pre-position's, whether the motor stopped there or went straight on to the
+// search's start.
+func positionedSWR(r *Rig, e tune.Event) float64 {
+	off := r.Axis.Position() - r.Station.Mech.MotorPosition()
+	return r.Station.SWRAt(Hz(e.Freq), e.Pos-float64(off))
 }

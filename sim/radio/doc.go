@@ -9,8 +9,10 @@
 // carrier at a given power, as the radio's tune button does: that is what a controller
 // configured to transmit uses. PTT by CAT puts no carrier on the air in SSB, CW or data modes,
 // because no audio or key reaches the simulated radio. Carrier reports what a directional
-// coupler at the antenna would see. Subscribe delivers changes without ever blocking the
-// radio.
+// coupler at the antenna would see: on a radio given a Clock, the carrier reaches the antenna
+// only a key-up time after the key (the T/R relays switch first) and lingers an unkey time after
+// the unkey, as a real radio's does, so that a controller pays for every key it makes. Subscribe
+// delivers changes without ever blocking the radio.
 //
 // ServeASCII and ServeBinary answer the ASCII dialect (two-letter commands ended by ';') and the
 // binary dialect (addressed frames of packed BCD) on any io.ReadWriter, with unsolicited

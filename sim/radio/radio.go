@@ -5,10 +5,12 @@ import (
 	"errors"
 	"fmt"
 	"sync"
+	"time"
 
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/band"
+	"github.com/tankd/tankd/controller/clock"
 )
 
 // Errors the radio refuses with. The CAT servers turn each into the dialect's refusal.
@@ -120,6 +122,20 @@ type Opts struct {
 	Off bool
 	// Name names the radio in logs. Default "sim radio".
 	Name string
+	// Clock times the carrier: with one, the carrier reaches the antenna KeyUp after a key
+	// and leaves it Unkey after an unkey, as a real radio's does; without one (nil) it follows
+	// the keying at once.
+	Clock clock.Clock
+	// KeyUp is how long after a key (Key, or PTT on) the carrier reaches the antenna: the radio
+	// switches its transmit/receive relays and sequences its stages before it lets RF out, and
+	// a CAT command takes a while on the line. A coupler reads no forward power before. Default
+	// 30 ms (from memory: a relay T/R switch takes some 10 to 20 ms, a short CAT command at
+	// 9600 baud about 10 ms more); negative: none.
+	KeyUp time.Duration
+	// Unkey is how long the carrier stays on the antenna after an unkey (Unkey, PTT off): the
+	// CAT command's own time on the line and the carrier's decay. Default 10 ms (from memory);
+	// negative: none. Switching the radio off ends the carrier at once.
+	Unkey time.Duration
 }
 
 // resolve fills in the defaults and reports every bad value at once.
@@ -153,6 +169,8 @@ func (o Opts) resolve() (Opts, error) {
 	if o.Name == "" {
 		o.Name = "sim radio"
 	}
+	o.KeyUp = keyingDelay(o.KeyUp, defaultKeyUp)
+	o.Unkey = keyingDelay(o.Unkey, defaultUnkey)
 	var errs []error
 	for i, b := range o.Bands {
 		if b.Low <= 0 || b.High <= b.Low {
@@ -186,6 +204,23 @@ func (o Opts) resolve() (Opts, error) {
 		return o, fmt.Errorf("radio options: %w", err)
 	}
 	return o, nil
+}
+
+// The keying delays' defaults (see Opts.KeyUp and Opts.Unkey).
+const (
+	defaultKeyUp = 30 * time.Millisecond
+	defaultUnkey = 10 * time.Millisecond
+)
+
+// keyingDelay resolves a keying delay: zero takes the default d, a negative value means none.
+func keyingDelay(v, d time.Duration) time.Duration {
+	switch {
+	case v == 0:
+		return d
+	case v < 0:
+		return 0
+	}
+	return v
 }
 
 func (o *Opts) transmits(f physic.Frequency) bool {
@@ -262,6 +297,11 @@ type Radio struct {
 	st         State
 	subs       map[*Subscription]struct{}
 	lastOrigin uint64
+	// With a clock: when the latest transmission was keyed, and until when the carrier of one
+	// just unkeyed is still on the antenna, at what power.
+	keyedAt   time.Time
+	tailUntil time.Time
+	tailPower physic.Power
 }
 
 // New returns a radio configured by o.
@@ -285,8 +325,9 @@ func New(o Opts) (*Radio, error) {
 // String names the radio.
 func (r *Radio) String() string { return r.o.Name }
 
-// Halt stops any transmission at once, leaving the radio receiving (periph's conn.Resource
-// convention: what main calls on the way out).
+// Halt ends any transmission at once, leaving the radio receiving (periph's conn.Resource
+// convention: what main calls on the way out); with a Clock the carrier leaves the antenna
+// within Opts.Unkey, as after any unkey.
 func (r *Radio) Halt() error { return r.unkey(0) }
 
 // MaxPower returns the most output power the radio gives.
@@ -327,8 +368,29 @@ func (r *Radio) Power() physic.Power { return r.State().Power }
 func (r *Radio) Transmitting() bool { return r.State().TX }
 
 // Carrier reports what the antenna coupler sees now: whether a carrier is on the antenna and
-// its power. See State.Carrier for what each kind of transmission gives.
-func (r *Radio) Carrier() (on bool, power physic.Power) { return r.State().Carrier() }
+// its power. See State.Carrier for what each kind of transmission gives; with a Clock, the
+// carrier is on the antenna only from KeyUp after the key, and stays on until Unkey after the
+// unkey.
+func (r *Radio) Carrier() (on bool, power physic.Power) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if r.o.Clock == nil {
+		return r.st.Carrier()
+	}
+	return r.carrierAt(r.o.Clock.Now())
+}
+
+// carrierAt is the carrier on the antenna at now; the caller holds mu and the radio has a clock.
+func (r *Radio) carrierAt(now time.Time) (bool, physic.Power) {
+	on, p := r.st.Carrier()
+	if on && now.Before(r.keyedAt.Add(r.o.KeyUp)) {
+		on, p = false, 0
+	}
+	if !on && r.st.On && now.Before(r.tailUntil) {
+		return true, r.tailPower
+	}
+	return on, p
+}
 
 // SetFrequency tunes the VFO in use to f, rounded to 1 Hz. A frequency outside the radio's
 // coverage fails with ErrOutOfBand; moving a transmission out of the transmit bands fails with
@@ -504,6 +566,15 @@ func (r *Radio) change(origin uint64, fn func(*State) error) error {
 // subscribers see the changes in the order they happened.
 func (r *Radio) commit(origin uint64, next State) {
 	c := diff(r.st, next)
+	if r.o.Clock != nil && r.st.TX != next.TX {
+		now := r.o.Clock.Now()
+		if next.TX {
+			// a key restarts the transmit sequence, cutting short what was left of the last
+			r.keyedAt, r.tailUntil = now, time.Time{}
+		} else if on, p := r.carrierAt(now); on && next.On {
+			r.tailUntil, r.tailPower = now.Add(r.o.Unkey), p
+		}
+	}
 	r.st = next
 	if c == 0 {
 		return
