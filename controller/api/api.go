@@ -310,7 +310,9 @@ func mediaType(r *http.Request) (string, error) {
 }
 
 // jsonBody reads a JSON request body (at most maxJSONBody): with a Content-Type, it must be
-// application/json.
+// application/json. (The types a browser may send to another site without asking first —
+// form-urlencoded, multipart, text/plain — are all refused, so a web page cannot post to the
+// API behind the operator's back.)
 func jsonBody(w http.ResponseWriter, r *http.Request) ([]byte, error) {
 	b, err := readBody(w, r, maxJSONBody)
 	if err != nil {

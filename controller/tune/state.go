@@ -68,7 +68,7 @@ const (
 	// FrequencyChanged: the radio left the frequency during the RF stages; nothing learned.
 	FrequencyChanged Outcome = "frequency-changed"
 	CarrierLimit     Outcome = "carrier-limit"   // would have needed more carrier time than allowed
-	NotTuned         Outcome = "not-tuned"       // verified SWR too high even after a slower sweep, or the dip itself reads above the target (left at the dip); nothing learned
+	NotTuned         Outcome = "not-tuned"       // verified SWR too high after a slower sweep, a fit still doubtful, or the dip reading above the target (left at the dip); nothing learned
 	TimedOut         Outcome = "timed-out"       // the tune's time limit passed
 	Fault            Outcome = "fault"           // the axis latched a fault, or the hardware failed
 	NeedsHoming      Outcome = "needs-homing"    // position untrusted; only homing can find it

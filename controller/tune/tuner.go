@@ -236,8 +236,9 @@ var (
 	// ErrCarrierLimit: the operation would have needed more carrier time than allowed.
 	ErrCarrierLimit = errors.New("carrier time limit reached")
 	// ErrNotTuned: the verified SWR stayed above the target, or above what the fitted dip
-	// promised, after a second, slower sweep; or the dip's own bottom reads above the target,
-	// and the loop is left at the dip. Nothing is learned.
+	// promised, after a second, slower sweep; or the fit stayed doubtful at the most readings,
+	// or the dip's own bottom reads above the target, and the loop is left at the dip. Nothing
+	// is learned.
 	ErrNotTuned = errors.New("the loop could not be verified in tune")
 	// ErrUnkeyFailed: the transmitter could not be unkeyed. It latches a fault and withdraws
 	// the tuner's permission to transmit until a reset succeeds in unkeying.
