@@ -193,7 +193,13 @@ func TestConcurrentTunes(t *testing.T) {
 	}
 	for _, a := range replies {
 		for _, c := range a.Cancelled {
-			if st := e.rig.Wait(t, controller.RequestID(c)); st.State != controller.RequestCancelled || st.By != controller.RequestID(a.RequestID) {
+			// A cancelled operation stops at its next check; one that was already finishing
+			// ends done (on the virtual clock a whole tune takes microseconds, so this race is
+			// real here). Either way, no one else ended it.
+			st := e.rig.Wait(t, controller.RequestID(c))
+			ok := st.State == controller.RequestCancelled && st.By == controller.RequestID(a.RequestID) ||
+				st.State == controller.RequestDone
+			if !ok {
 				t.Fatalf("request %d said it cancelled %d, which ended %s by %d", a.RequestID, c, st.State, st.By)
 			}
 		}
