@@ -27,9 +27,17 @@ import "math"
 // predicts those points left out: the one that has been right.
 //
 // Where each scale acts:
-//   - cShape lengthens Reach (at most calibReachGrowth times): errors near the points show how
-//     smooth the law is over the short distances they test; they say nothing of the bends
-//     between bands, so Bend, the law's spread far from every point, stays as guessed.
+//   - cShape scales Bend², the variance of the law's deviation from the global model, before
+//     the learned points' own scatter is pooled with it (fit.go); as the evidence demands of a
+//     scale it is computed for, near the points and far from them alike. It learns only from
+//     errors made far from the learned points, in proportion to how far (outcome.far): a band
+//     tuned for the first time, predicted from the others, where the law is nearly the whole of
+//     σ. Beside a point, the law's part of σ is what the guessed Reach leaves unknown over a
+//     short distance, and an error there tests how smooth the law is over that distance, not
+//     how far it bends between bands: a tabulated capacitor may be smooth over the one and bend
+//     by all of Bend over the other. (Lengthening Reach by the errors instead, as this map once
+//     did, left the law's variance between bands at the guess whatever the errors showed, and
+//     that guess the largest part of σ beyond a band's points.)
 //   - cNoise scales PosNoise's variance, everywhere the map uses it.
 //   - cPrior scales the prior's variance, bare or anchored.
 //   - cEps and cOff scale the part of a prediction's σ that the drift of ε and of the offset
@@ -52,18 +60,32 @@ const (
 // calibWeight is how many fully informative errors' worth of weight the options' guess of each
 // source keeps.
 //
-// A tenth for the map's own sources: the guesses are generous by design (a σ too small costs a
-// missed sweep, one too large only time), and on a loop that is better than they say the map
-// should tighten within the few tunes of a first session, not after dozens. An error is
-// informative about a source in proportion to its share, so a single lucky error (below 0.1σ
-// one time in twelve, standard normal tables) rarely carries a whole share; and a scale that
-// fell too far shows at the next tune, whose error is then large in its own σ, and comes back.
+// The guess enters the scale as ν·1 beside the evidence, so the scale cannot fall below
+// ν/(ν + w), w the source's summed shares, whatever the errors show. The guesses are generous
+// by design (a σ too small costs a missed sweep, one too large only time), and on a loop that
+// is better than they say the map should tighten within the few tunes of a first session, not
+// after dozens.
+//
+// The drift and the noise share every error with the others, a third to a half each, so that a
+// first session's six to ten tunes give each of them a w of only two to four: at a weight of a
+// tenth the guess alone kept their scale above 0.03–0.05, a variance still about twice what
+// the errors showed. Three hundredths leave that bound below what a session's errors can
+// measure, and still keep one lucky error from carrying a source far: an error of 0.1σ (one
+// time in twelve, standard normal tables) with half the variance brings the scale to
+// (0.03 + 0.005)/0.53, a σ a quarter of the guess, and a scale that fell too far shows at the
+// next tune, whose error is then large in its own σ, and comes back.
+//
+// Three tenths for the law: its evidence comes about one error per band tuned for the first
+// time, and the bends of a tabulated capacitor between bands are what a map learned in two or
+// three bands knows least. One such error, however small, leaves at least a quarter of the
+// guessed variance (0.3/1.3), two about a seventh, so that a stretch or two that happened to
+// be straight do not vouch for the next one.
 //
 // One for the prior: its σ is the station description's stated tolerance, a considered figure
 // rather than a guess of the map's, and the map has one bare-prior error to judge it by (the
 // first tune's) before it anchors to the learned points; that error can at most halve its
 // variance.
-var calibWeight = [nComp]float64{cShape: 0.1, cEps: 0.1, cOff: 0.1, cNoise: 0.1, cPrior: 1}
+var calibWeight = [nComp]float64{cShape: 0.3, cEps: 0.03, cOff: 0.03, cNoise: 0.03, cPrior: 1}
 
 const (
 	// calibMemory is over how many errors of full weight the evidence of the sources that do
@@ -80,12 +102,6 @@ const (
 	// smaller than its guess no longer matters beside the others, and the floor keeps its
 	// estimate from running towards zero on errors that another source explains.
 	calibFloor = 0.01
-	// calibReachGrowth is the most the map's errors may lengthen Reach. Errors beside the
-	// learned points test the law over a fraction of Reach; beyond the distances they test, a
-	// longer reach would trust the points' deviations over stretches nobody has checked
-	// (between bands), where a tabulated capacitor bends. Twice the guess (a variance a
-	// quarter of it at the same distance) takes most of the gain where the law is straight.
-	calibReachGrowth = 2
 )
 
 // calib is the evidence of the map's past errors, source by source.
@@ -109,11 +125,6 @@ func (c *calib) scaleAt(k int, a float64) float64 {
 	return math.Max((nu+a*c.s[k])/(nu+a*c.w[k]), calibFloor)
 }
 
-// reachFactor is how much longer than guessed the law's deviations carry (cShape).
-func (c *calib) reachFactor() float64 {
-	return math.Min(1/math.Sqrt(c.scale(cShape)), calibReachGrowth)
-}
-
 // fade ages the evidence of the drift by the decay factor a of the time since the last tune.
 func (c *calib) fade(a float64) {
 	for _, k := range [2]int{cEps, cOff} {
@@ -123,9 +134,9 @@ func (c *calib) fade(a float64) {
 }
 
 // note adds the evidence of an error r of a prediction whose variance, with the new tune's own
-// position variance, was the sum of parts, source by source. Only the sources marked in use
-// learn from it.
-func (c *calib) note(r float64, parts *[nComp]float64, use [nComp]bool) {
+// position variance, was the sum of parts, source by source. Each source learns from it in
+// proportion to its share and to use[k], from 0 (not at all) to 1.
+func (c *calib) note(r float64, parts *[nComp]float64, use [nComp]float64) {
 	var s float64
 	for _, v := range parts {
 		s += v
@@ -135,10 +146,10 @@ func (c *calib) note(r float64, parts *[nComp]float64, use [nComp]bool) {
 	}
 	z2 := math.Min(r*r/s, calibClip)
 	for k, v := range parts {
-		if !use[k] || !(v > 0) {
+		if !(use[k] > 0) || !(v > 0) {
 			continue
 		}
-		a, l := v/s, c.scale(k)
+		a, l := use[k]*v/s, c.scale(k)
 		keep := 1 - a/calibMemory
 		if k == cEps || k == cOff {
 			keep = 1 // these fade with time instead

@@ -21,7 +21,7 @@
 //
 // # An honest σ
 //
-// The options that size σ (Bend and Reach, PosNoise, DriftMax and OffsetMax, the prior's own
+// The options that size σ (Bend, PosNoise, DriftMax and OffsetMax, the prior's own
 // Sigma) are guesses about a loop nobody has measured. Every tune measures them: before a point
 // is learned the map predicts it, and the error of that prediction, source by source in
 // proportion to each one's share of its variance, says how far each guess is off. The map
@@ -68,7 +68,8 @@
 //	  - The calib line is the evidence of the map's past errors (calib.go), for each source of
 //	    error in turn (the capacitor's law, the drift of the slope change, the drift of the
 //	    offset, the tunes' own position error, the prior): the sum of the shares that source had
-//	    in the errors' predicted variance, and the sum of those shares times the evidence,
+//	    in the errors' predicted variance (for the law, each weighted by how far from the learned
+//	    points the error was made), and the sum of those shares times the evidence,
 //	    comma-separated; both finite and not negative.
 //	  - The points line gives the number of point lines that follow, sorted by frequency.
 //	  - A point line is a learned point: frequency in hertz (a decimal, to the microhertz),

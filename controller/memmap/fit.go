@@ -13,8 +13,9 @@ import "math"
 //     points that matter, which keeps a prediction cheap.
 //
 // The residuals' variance τ² is estimated from their scatter beyond the position noise, pulled
-// towards the prior Bend with the weight of benchNu observations, so that a map of two or three
-// points is not trusted as if it had shown the capacitor to be straight.
+// towards the prior Bend (as the map's errors have scaled it, calib.go) with the weight of
+// benchNu observations, so that a map of two or three points is not trusted as if it had shown
+// the capacitor to be straight.
 
 const (
 	// benchNu is how many residuals' worth of weight the prior Bend has in τ².
@@ -108,16 +109,16 @@ func (m *Map) refit() {
 			if bend == 0 {
 				bend = defaultBendShare * hmax
 			}
-			bend2 = bend * bend
+			// Bend is a guess, and the map's errors say how far off it is (calib): the
+			// prediction of a band not yet learned, made from the others, is nearly all law
+			// and tests the bends between bands directly; errors beside the points test only
+			// the law's smoothness there, and do not move it (outcome.far). The guess so
+			// scaled is what the points' own scatter is pooled with.
+			bend2 = m.cal.scale(cShape) * bend * bend
 			reach := m.o.reach
 			if reach == 0 {
 				reach = defaultReachShare * hmax
 			}
-			// The deviation a learned point leaves unknown beside it grows as τ·d/reach; the
-			// map's errors there say whether the law is smoother than that (calib), and a
-			// smoother law is a longer reach, not a smaller bend: far from every point, the
-			// law may still stray by all of Bend.
-			reach *= m.cal.reachFactor()
 			_, dgc, _ := fm.eval(fm.xc)
 			fm.reach = math.Max(reach/math.Max(math.Abs(dgc), 1e-300), 1e-12*math.Abs(fm.xc))
 		}

@@ -437,6 +437,18 @@ type outcome struct {
 	vf    float64
 }
 
+// far is how far from the learned points pr was made, from 0 (at a point) to 1 (beyond the
+// reach of every point), as 1 less the weights a noiseless interpolation gives its neighbours.
+//
+// It is how much the error of pr says of Bend, the law's spread from the global model, which
+// the map scales by its errors (calib): beside a point, the law's share of σ is what the guessed
+// Reach leaves unknown over a short distance, and an error there tests how smooth the law is
+// over that distance, not how far it bends between bands; a tabulated capacitor can be smooth
+// over the first and bend by all of Bend over the second.
+func (pr *outcome) far() float64 {
+	return math.Min(math.Max(1-pr.w[0]-pr.w[1], 0), 1)
+}
+
 // absorb updates the drift estimate with a tune that landed r steps from the prediction pr
 // for q, and carries every point's cross-covariance through the update.
 //
@@ -651,7 +663,8 @@ func (m *Map) predictPrior(q *query) (outcome, bool) {
 // predictor that was not used is scored too, for its own source alone, so that the choice
 // between them has the errors of both to go by.
 func (m *Map) score(pr *outcome, found float64, q *query) {
-	all := [nComp]bool{true, true, true, true, true}
+	all := [nComp]float64{1, 1, 1, 1, 1}
+	all[cShape] = pr.far()
 	parts := pr.parts
 	parts[cNoise] += m.posVar()
 	m.cal.note(found-pr.Pos, &parts, all)
@@ -669,8 +682,11 @@ func (m *Map) score(pr *outcome, found float64, q *query) {
 	} else {
 		other, own = m.predictMap(q), cShape
 	}
-	var use [nComp]bool
-	use[own] = true
+	var use [nComp]float64
+	use[own] = 1
+	if own == cShape {
+		use[own] = other.far()
+	}
 	parts = other.parts
 	parts[cNoise] += m.posVar()
 	m.cal.note(found-other.Pos, &parts, use)

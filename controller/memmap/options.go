@@ -13,7 +13,7 @@ import (
 // zero would be a meaningful setting of its own ("no forgetting", "no offset drift"), a negative
 // value selects it.
 //
-// PosNoise, Bend with Reach, DriftMax, OffsetMax and the Prior's Sigma are where the map's σ
+// PosNoise, Bend, DriftMax, OffsetMax and the Prior's Sigma are where the map's σ
 // starts: as tunes come in, the map scales each by what its own errors show (see "An honest σ"
 // in the package documentation), so a guess on the safe side costs only the first few tunes.
 type Options struct {
@@ -34,14 +34,14 @@ type Options struct {
 	// dip. Default 1.
 	PosNoise float64
 	// Bend is the typical (1-σ) deviation of the capacitor's law from the global model, in steps,
-	// assumed until the map's own scatter tells better. Default: 0.5 % of the position-equivalent
-	// of the largest capacitance the map spans. Set it from a measurement of the capacitor if the
-	// law is known to be far from straight.
+	// assumed until the map's own scatter and errors tell better (its errors scale it, as they
+	// do the other guesses). Default: 0.5 % of the position-equivalent of the largest capacitance
+	// the map spans. Set it from a measurement of the capacitor if the law is known to be far
+	// from straight.
 	Bend float64
 	// Reach is how far, in steps, a local deviation from the global model carries to the
 	// neighbouring positions (the correlation length). Default: a tenth of the
-	// position-equivalent of the largest capacitance the map spans. The map lengthens it, up to
-	// twice, where its errors show the law to be smoother than that.
+	// position-equivalent of the largest capacitance the map spans.
 	Reach float64
 	// QuadMinPoints is how many points the map needs, spread over a frequency ratio of at least
 	// √2, before the global model gets its quadratic term; points close enough to share one local
