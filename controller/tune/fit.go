@@ -27,6 +27,14 @@ type dipFit struct {
 	// after the most readings, kept only to leave the loop near its dip (see roughError).
 	// settle goes to its centre and ends not-tuned; nothing is learned from it.
 	doubt string
+	// viaPlay: the centre was found sweeping down and turned into final-approach coordinates by
+	// the measured play, whose error (a play measured at another speed, or on another dip) it
+	// carries besides its own.
+	viaPlay bool
+	// nearNoise is the rms residual of the readings near the bottom (|Γ|² below
+	// fitParams.nearGamma2), 0 where there are too few: a log detector's noise there can be many
+	// times what it is off the dip.
+	nearNoise float64
 }
 
 // curve is a fitted model's coefficients, kept to draw it.
@@ -110,6 +118,7 @@ func fitRational(k *fitParams, samples []sample, expWidth, relNoise float64) (di
 	}
 	b := make([]float64, n)
 	var th []float64
+	nearRMS := 0.0
 	for range k.iterations {
 		for i, s := range samples {
 			x, g := xs[i], s.Gamma2
@@ -141,7 +150,8 @@ func fitRational(k *fitParams, samples []sample, expWidth, relNoise float64) (di
 			}
 		}
 		if nearN >= k.nearReadings {
-			absNoise = math.Max(k.minAbsNoise, math.Sqrt(nearSq/float64(nearN))*k.residualShare)
+			nearRMS = math.Sqrt(nearSq / float64(nearN))
+			absNoise = math.Max(k.minAbsNoise, nearRMS*k.residualShare)
 		}
 		if converged {
 			break
@@ -156,6 +166,7 @@ func fitRational(k *fitParams, samples []sample, expWidth, relNoise float64) (di
 		MinGamma2: (th[0] + th[1]*x0 + th[2]*x0*x0) / (h * h),
 		N:         n,
 		curve:     curve{method: "rational", ref: ref, scale: scale, c: th},
+		nearNoise: nearRMS,
 	}
 	// χ² against the noise model and the readings' placement: a reading taken on the move is
 	// placed to a whole step, which on a steep flank is worth more than the converter's noise.

@@ -223,6 +223,17 @@ type sweepParams struct {
 	// centre: the far flank then holds as much of the curve as the margin gives the near one).
 	passedShare  float64
 	passedWidths float64
+	// symmetricWidths and narrowStepSWR: on a dip so narrow that a step off its centre costs
+	// more than narrowStepSWR (three times the tolerance: a half-width under about 7.5 steps),
+	// the sweep also reads as far past the deepest point as before it, up to symmetricWidths·w,
+	// where a Lorentzian is down to an eighth of its peak and readings further out add little
+	// to the centre. A sweep stopped at passedWidths leaves the far flank shorter than the near
+	// one and the fit's centre a fraction of a step toward the near side: on such a dip that
+	// fraction decided between a tune and a miss (the bench's small loops on 40 m). On wider
+	// dips a fraction of a step costs little, and the longer sweep only time (judgements, from
+	// the bench's harsh ranges).
+	symmetricWidths float64
+	narrowStepSWR   float64
 	// minDepth: a sweep whose deepest reading absorbs less than this saw no dip.
 	minDepth float64
 	// edgeWidths: a deepest reading within this many w of a sweep's end, short of the
@@ -370,6 +381,19 @@ type verifyParams struct {
 	sigmas float64
 	// slack in |Γ|² for the fit's own error: 0.005 is an SWR of 1.15 from a perfect match.
 	slack float64
+	// compareSigma, steps, is the standard error the readings that place a fit found sweeping
+	// down (placeByReadings) must reach for the comparison to be made: a fifth of the half step
+	// that decides between two steps (a judgement).
+	compareSigma float64
+	// compareReadings is the most readings the comparison may take at each of the two steps:
+	// where more would be needed (a noisy bottom, or a wide one, which is flat) the comparison
+	// costs more carrier than the step it may save is worth, and the fit alone decides (a
+	// judgement).
+	compareReadings int
+	// compareShift, steps, is the furthest the comparison may move the fitted curve: the play's
+	// error has been seen at a step or two; readings that ask for more disagree with the curve
+	// itself, and the verify judges the fit's own centre instead.
+	compareShift float64
 }
 
 // learnParams decide what a tune teaches the map.
@@ -546,6 +570,8 @@ func defaultParams() params {
 			deepSigmas:      6,
 			passedShare:     0.3,
 			passedWidths:    1.6,
+			symmetricWidths: 2.7,
+			narrowStepSWR:   0.3,
 			minDepth:        minDepth,
 			edgeWidths:      1,
 			followWidths:    2,
@@ -588,15 +614,18 @@ func defaultParams() params {
 			placement:     0.5,
 		},
 		verify: verifyParams{
-			readings:      3,
-			minReadings:   1,
-			maxResweeps:   1,
-			resweepSlack:  2,
-			resweepEffort: 2,
-			misplace:      0.75,
-			gammaFloor:    0.02,
-			sigmas:        4,
-			slack:         0.005,
+			readings:        3,
+			minReadings:     1,
+			maxResweeps:     1,
+			resweepSlack:    2,
+			resweepEffort:   2,
+			misplace:        0.75,
+			gammaFloor:      0.02,
+			sigmas:          4,
+			slack:           0.005,
+			compareSigma:    0.1,
+			compareReadings: 4,
+			compareShift:    2.5,
 		},
 		learn: learnParams{
 			slipWidths: 4,

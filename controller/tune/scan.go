@@ -185,20 +185,26 @@ func (p *op) scanSegment(from, to, w, speed, thr float64, n int) (coarseHit, boo
 	if err != nil {
 		return coarseHit{}, false, nil, err
 	}
-	hit := coarseHit{pos: s.upEquiv(s.posMax), uncertainty: p.hitUncertainty(w, dir)}
-	if stopped {
-		return hit, true, nil, nil
-	}
+	hit, found, holes := s.end(stopped, float64(e))
+	return hit, found, holes, nil
+}
+
+// end is a scan segment's outcome once its sweep has ended at e, stopped on a dip or not: the
+// hit, if it found one, else the stretches its readings skipped. The off-dip level it measured is
+// kept for the fine sweep either way (op.baseline): the means in the dip are left out of it, so
+// that a segment that stopped on a dip measured it as well as one that did not.
+func (s *scanWatch) end(stopped bool, e float64) (coarseHit, bool, [][2]float64) {
+	p, k := s.p, s.k
 	if s.base.n > k.baselineKeep {
 		p.baseline = s.base.value()
 	}
-	if s.above >= k.hitReadings {
-		return hit, true, nil, nil
+	if stopped || s.above >= k.hitReadings {
+		return coarseHit{pos: s.upEquiv(s.posMax), uncertainty: p.hitUncertainty(s.w, s.dir)}, true, nil
 	}
-	if !math.IsNaN(s.last) && math.Abs(float64(e)-s.last) > s.hole() {
-		s.holes = append(s.holes, [2]float64{s.last, float64(e)})
+	if !math.IsNaN(s.last) && math.Abs(e-s.last) > s.hole() {
+		s.holes = append(s.holes, [2]float64{s.last, e})
 	}
-	return coarseHit{}, false, s.holes, nil
+	return coarseHit{}, false, s.holes
 }
 
 // scanWatch judges a coarse scan's readings. A dip is a few readings above the threshold within
@@ -263,7 +269,9 @@ func (s *scanWatch) take(r sample) verdict {
 	a := s.base.value() - m.Gamma2
 	if a >= s.thr {
 		if math.Abs(m.Pos-s.lastAbove) > k.hitSpanWidths*s.w+spacingOf(s.speed, s.p) {
-			s.above = 0
+			// A new cluster: the deepest mean of an earlier one (a lone spike) is not its
+			// peak, nor what it must fall back from to have passed the dip.
+			s.above, s.aMax, s.posMax = 0, 0, math.NaN()
 		}
 		s.above++
 		s.lastAbove = m.Pos

@@ -100,6 +100,8 @@ func (p *op) refineAroundEffort(c coarseHit, w float64, noise noiseLevel, effort
 		again = true
 		if err == nil {
 			f.Centre += off
+			f.curve.ref += off // (the curve too: the verify and the final step read it there)
+			f.viaPlay = off != 0
 			return f, nil
 		}
 		var edge *edgeError
@@ -140,6 +142,8 @@ func (p *op) refineAroundEffort(c coarseHit, w float64, noise noiseLevel, effort
 			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: the best this loop reaches here", err)})
 			f := high.fit
 			f.Centre += off
+			f.curve.ref += off // (the curve too: the verify and the final step read it there)
+			f.viaPlay = off != 0
 			return f, nil
 		case errors.Is(err, errNoFit):
 			return dipFit{}, fmt.Errorf("%w: %w", ErrNoDip, err)
@@ -227,6 +231,10 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 	n, sd := noise.averaging(&t.par.scan)
 	f := &fineWatch{k: k, start: float64(start), dir: dir, w: w, baseline: p.baseline, avg: newMean(n),
 		deep: math.Max(k.deepShare, k.deepSigmas*sd/math.Sqrt(float64(n)))}
+	if sense.SWRFromGamma2(1/(1+w*w))-1 > k.narrowStepSWR {
+		// a dip so narrow that a fraction of a step in its centre decides the step
+		f.sym = k.symmetricWidths * w
+	}
 	if _, err := p.sweepRead("fine", from, start, end, speed, f); err != nil {
 		return dipFit{}, err
 	}
@@ -304,7 +312,7 @@ func (p *op) trimRunUp(pos motion.Steps, legs []motion.Steps, start motion.Steps
 }
 
 // fineWatch collects a fine sweep's readings and stops the sweep once it has clearly passed
-// the dip.
+// the dip and, on a narrow one, read as far past its deepest point as before it (up to sym).
 type fineWatch struct {
 	k        *sweepParams
 	start    float64          // readings before it belong to the run-up
@@ -313,6 +321,7 @@ type fineWatch struct {
 	baseline float64          // the coupler's off-dip |Γ|²
 	avg      *runningMean
 	deep     float64 // the least peak of the absorbed share that may stop the sweep
+	sym      float64 // the most it reads past the deepest point to match the readings before it
 
 	samples      []sample
 	aMax, posMax float64 // the deepest mean so far, and where
@@ -332,8 +341,14 @@ func (f *fineWatch) take(s sample) verdict {
 	if a > f.aMax {
 		f.aMax, f.posMax = a, m.Pos
 	}
+	// (and, on a narrow dip, symmetric: read as far past the deepest point as before it, up to
+	// sym: a sweep that stops sooner leaves the fit more readings on
+	// the near flank than on the far one, which pulls its centre toward the near side by a
+	// fraction of a step, the step decided on a narrow dip)
 	beyond := (m.Pos - f.posMax) * float64(f.dir)
-	if f.aMax > f.deep && beyond > f.k.passedWidths*f.w && a < f.k.passedShare*f.aMax {
+	before := (f.posMax - f.start) * float64(f.dir)
+	if f.aMax > f.deep && beyond > f.k.passedWidths*f.w && beyond >= math.Min(before, f.sym) &&
+		a < f.k.passedShare*f.aMax {
 		return stopNow
 	}
 	return readOn
