@@ -69,6 +69,10 @@ type WeatherSpec struct {
 type RadioSpec struct {
 	FrequencyHz float64 `toml:"frequency_hz"`
 	MaxPowerW   float64 `toml:"max_power_w"`
+	// KeyUpMS is how long after a key the carrier reaches the antenna, and UnkeyMS how long it
+	// stays after an unkey, ms; 0: at once (radio.Opts.KeyUp, radio.Opts.Unkey).
+	KeyUpMS float64 `toml:"key_up_ms"`
+	UnkeyMS float64 `toml:"unkey_ms"`
 }
 
 // DefaultSpec is the demo station (station.DefaultDescription) simulated: a motor that pulls
@@ -85,7 +89,7 @@ func DefaultSpec() Spec {
 			Coupler: CouplerSpec{DirectivityDB: 30, LeakPhaseDeg: 60,
 				ADCBits: 15, ADCFullScaleV: 4.096, ADCNoiseMV: 0.6, ConversionUS: 1163},
 			Weather: WeatherSpec{MeanC: 12, SwingK: 5, PeakHour: 14, WanderK: 1},
-			Radio:   RadioSpec{FrequencyHz: 3.75e6, MaxPowerW: 100},
+			Radio:   RadioSpec{FrequencyHz: 3.75e6, MaxPowerW: 100, KeyUpMS: 30, UnkeyMS: 10},
 		},
 	}
 }
@@ -222,6 +226,10 @@ func simulatorRanges() map[string]station.Range {
 		"simulator.radio.frequency_hz": station.FrequencyRange(),
 		// Ten kilowatts is above every amateur licence's limit (from memory).
 		"simulator.radio.max_power_w": {Min: 0, MinOpen: true, Max: 10000, Unit: "W"},
+		// Relay T/R switching and a CAT command take tens of ms; an amplifier's sequencer may
+		// add some hundreds (from memory).
+		"simulator.radio.key_up_ms": {Min: 0, Max: 2000, Unit: "ms"},
+		"simulator.radio.unkey_ms":  {Min: 0, Max: 2000, Unit: "ms"},
 	}
 }
 

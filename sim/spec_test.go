@@ -1,14 +1,17 @@
 package sim
 
 import (
+	"context"
 	"math"
 	"os"
 	"strings"
 	"testing"
+	"time"
 
 	"periph.io/x/conn/v3/physic"
 
 	"github.com/tankd/tankd/controller/station"
+	"github.com/tankd/tankd/sim/vclock"
 )
 
 func TestDefaultSpecValid(t *testing.T) {
@@ -148,6 +151,33 @@ func TestConfigFilesArePresets(t *testing.T) {
 	for name := range station.Presets() {
 		if _, err := Preset(name); err != nil {
 			t.Errorf("station preset %s has no simulated station: %v", name, err)
+		}
+	}
+}
+
+// A station file's keying delays reach the simulated radio: 0 means the carrier follows the
+// key at once, and a slow radio's carrier reaches the antenna only after its key-up time.
+func TestStationFileKeyingDelays(t *testing.T) {
+	for _, c := range []struct {
+		keyUp    float64
+		wantAt0  bool
+		wantAt99 bool
+	}{{0, true, true}, {100, false, false}, {30, false, true}} {
+		s := DefaultSpec()
+		s.Simulator.Radio.KeyUpMS = c.keyUp
+		clk := vclock.New(vclock.Epoch)
+		st, err := NewStation(s, clk)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := st.Radio.Key(context.Background(), 5*physic.Watt); err != nil {
+			t.Fatal(err)
+		}
+		on0, _ := st.Radio.Carrier()
+		clk.Advance(99 * time.Millisecond)
+		on99, _ := st.Radio.Carrier()
+		if on0 != c.wantAt0 || on99 != c.wantAt99 {
+			t.Errorf("key_up_ms = %g: carrier %v at the key and %v 99 ms on, want %v and %v", c.keyUp, on0, on99, c.wantAt0, c.wantAt99)
 		}
 	}
 }

@@ -3,6 +3,7 @@ package sim
 import (
 	"fmt"
 	"math"
+	"time"
 
 	"periph.io/x/conn/v3/physic"
 
@@ -77,7 +78,8 @@ func NewStation(s Spec, clk clock.Clock) (*Station, error) {
 	}
 	ro := s.Simulator.Radio
 	f := physic.Frequency(math.Round(ro.FrequencyHz)) * physic.Hertz
-	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(ro.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB, Clock: clk}); err != nil {
+	if st.Radio, err = radio.New(radio.Opts{MaxPower: physic.Power(ro.MaxPowerW * float64(physic.Watt)), FreqA: f, Mode: radio.USB, Clock: clk,
+		KeyUp: keyingDelay(ro.KeyUpMS), Unkey: keyingDelay(ro.UnkeyMS)}); err != nil {
 		return nil, fmt.Errorf("station: %w", err)
 	}
 	co, err := s.CouplerOptions()
@@ -155,4 +157,13 @@ func (st *Station) Best(f float64) (pos motion.Steps, swr float64, err error) {
 		}
 	}
 	return pos, swr, nil
+}
+
+// keyingDelay is a station file's keying delay (ms) as radio.Opts takes it: zero there is the
+// radio's default, so "at once" is said with a negative duration.
+func keyingDelay(ms float64) time.Duration {
+	if ms <= 0 {
+		return -1
+	}
+	return time.Duration(ms * float64(time.Millisecond))
 }
