@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"math"
 
 	"periph.io/x/conn/v3/physic"
 
@@ -95,10 +94,10 @@ func (p *op) calibrate(f physic.Frequency) (Outcome, error) {
 		t.d.Axis.UseBacklash(pl.b)
 		t.calibrated = true
 		t.play = pl.up - pl.down
-		t.playSigma = math.Max(t.par.play.centreNoise, pl.spread/math.Sqrt2)
+		t.playSigma = pl.sigma
 		t.playSpeed = p.calSpeed
 		p.res.Backlash = pl.b
-		t.note(p.res, "backlash %d steps (up-sweep dip %.1f, down-sweep %.1f, repeatability ±%.1f)", pl.b, pl.up, pl.down, pl.spread/2)
+		t.note(p.res, "backlash %d steps (up-sweep dip %.1f, down-sweep %.1f, repeatability ±%.2f)", pl.b, pl.up, pl.down, pl.sigma)
 		fit.Centre, fit.doubt = pl.up, "" // (the calibration's own sweeps found it)
 	}
 	if err := p.settle(fit, pred); err != nil {

@@ -447,6 +447,16 @@ type playParams struct {
 	storedSigma float64
 	// maxEffort is the most readings the sweeps are repeated with, as a multiple of the first.
 	maxEffort int
+	// fitWidths: each of its sweeps is fitted on the readings within this many dip half-widths
+	// of its centre, as far on one side as on the other, and reads that far past the dip (see
+	// symmetricAround): two, which keeps the flanks where the curve is steepest.
+	fitWidths float64
+	// lopsided is the error, as a share of the dip's half-width, that the up and down sweeps
+	// make alike however often they are repeated: a coupler of poor directivity makes the dip
+	// lopsided, which the fitted curve follows nearly but not quite, and what is left does not
+	// quite cancel between the two directions. A two-hundredth: about what is seen on the simulated
+	// couplers down to 17 dB of directivity (a judgement from the tests).
+	lopsided float64
 }
 
 // motionParams size the moves around the dip.
@@ -648,6 +658,8 @@ func defaultParams() params {
 			centreNoise:  0.05,
 			storedSigma:  0.5,
 			maxEffort:    2,
+			fitWidths:    2,
+			lopsided:     0.005,
 		},
 		motion: motionParams{
 			runUpMargin: 8,

@@ -235,6 +235,10 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 		// a dip so narrow that a fraction of a step in its centre decides the step
 		f.sym = k.symmetricWidths * w
 	}
+	if p.centreNoise > 0 {
+		// a calibration's sweep reads past the dip as far as its fit reaches (symmetricAround)
+		f.sym = math.Max(f.sym, (t.par.play.fitWidths+calibrationOvershoot)*w)
+	}
 	if _, err := p.sweepRead("fine", from, start, end, speed, f); err != nil {
 		return dipFit{}, err
 	}
@@ -258,6 +262,11 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 	fit, err := fitDip(&t.par.fit, f.samples, w, noise.rel)
 	if err != nil {
 		return dipFit{}, err
+	}
+	if p.centreNoise > 0 {
+		if fit, f.samples, err = p.symmetricFit(fit, f.samples, w, noise); err != nil {
+			return dipFit{}, err
+		}
 	}
 	// (judged against the first sweep's spacing: a sweep repeated with more readings must not
 	// be held to a tighter gap than the one it repeats)
