@@ -8,6 +8,8 @@ import (
 	"os"
 	"path/filepath"
 	"strconv"
+
+	"github.com/tankd/tankd/controller/store"
 )
 
 // The files of a state directory, by name. Dir's methods give their paths.
@@ -88,22 +90,7 @@ func prepare(dir string, mustExist bool) error {
 	}
 	// The new directory's entry in its parent is made durable as store makes its files':
 	// otherwise a power cut could take the directory, and every file saved in it, away.
-	return syncDir(filepath.Dir(dir))
-}
-
-func syncDir(dir string) error {
-	d, err := os.Open(dir)
-	if err != nil {
-		return err
-	}
-	err = d.Sync()
-	if cerr := d.Close(); err == nil {
-		err = cerr
-	}
-	if err != nil {
-		return fmt.Errorf("sync directory %s: %w", dir, err)
-	}
-	return nil
+	return store.SyncDir(filepath.Dir(dir))
 }
 
 // writePID puts pid in the lock file, for the error of an Open that finds the directory held.

@@ -184,7 +184,7 @@ func write(ops fileOps, path string, body []byte) error {
 			}
 		}
 	}
-	return replaceFile(ops, dir, base, path, data)
+	return replaceFile(ops, dir, base+tempInfix+"*", path, data)
 }
 
 func splitPath(path string) (dir, base string) {
@@ -208,7 +208,7 @@ func keepPrevious(ops fileOps, path string, old []byte) error {
 	// the same (by a writer breaking the one-writer rule) fails the link, and the copy follows.
 	tmp := filepath.Join(dir, base+tempInfix+strconv.FormatUint(uint64(rand.Uint32()), 10))
 	if err := ops.Link(path, tmp); err != nil {
-		if err := replaceFile(ops, dir, base, prev, old); err != nil {
+		if err := replaceFile(ops, dir, base+tempInfix+"*", prev, old); err != nil {
 			return fmt.Errorf("keep previous copy: %w", err)
 		}
 		return nil
@@ -224,10 +224,32 @@ func keepPrevious(ops fileOps, path string, old []byte) error {
 	return nil
 }
 
-// replaceFile writes data to a new temporary file in dir, makes it durable, renames it over
-// path, and makes the rename durable.
-func replaceFile(ops fileOps, dir, base, path string, data []byte) (err error) {
-	f, err := ops.CreateTemp(dir, base+tempInfix+"*")
+// ErrDirSync: the file is in place and whole, but its directory could not be synced: only its
+// survival across a power cut is in doubt.
+var ErrDirSync = errors.New("sync directory")
+
+// WriteNew writes data, as it is (no checksum line, no previous copy), to path crash-safely: at
+// every moment the name holds either what it held before or the whole of data. The temporary
+// file is created in path's directory by os.CreateTemp's pattern tempPattern, so that the
+// caller can recognise one a killed write left behind. An error wrapping ErrDirSync says that
+// the file is in place but the directory could not be synced.
+func WriteNew(path, tempPattern string, data []byte) error {
+	dir, _ := splitPath(path)
+	return replaceFile(osOps{}, dir, tempPattern, path, data)
+}
+
+// SyncDir makes the entries of directory dir (files created, renamed or removed in it) durable.
+func SyncDir(dir string) error {
+	if err := (osOps{}).SyncDir(dir); err != nil {
+		return fmt.Errorf("%w %s: %w", ErrDirSync, dir, err)
+	}
+	return nil
+}
+
+// replaceFile writes data to a new temporary file in dir, named by os.CreateTemp's pattern,
+// makes it durable, renames it over path, and makes the rename durable.
+func replaceFile(ops fileOps, dir, pattern, path string, data []byte) (err error) {
+	f, err := ops.CreateTemp(dir, pattern)
 	if err != nil {
 		return fmt.Errorf("create temporary file: %w", err)
 	}
@@ -256,7 +278,7 @@ func replaceFile(ops fileOps, dir, base, path string, data []byte) (err error) {
 	}
 	if err := ops.SyncDir(dir); err != nil {
 		// The new file is in place; only its durability across a power cut is in doubt.
-		return fmt.Errorf("sync directory %s: %w", dir, err)
+		return fmt.Errorf("%w %s: %w", ErrDirSync, dir, err)
 	}
 	return nil
 }

@@ -494,3 +494,29 @@ func BenchmarkReadFile(b *testing.B) {
 		}
 	}
 }
+
+// WriteNew puts the data at the path as it is (no checksum line), replaces what was there, and
+// leaves no temporary file by its pattern behind.
+func TestWriteNewWritesTheDataAsItIs(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "a.rec")
+	for _, data := range [][]byte{[]byte("first\n"), []byte("second, no newline")} {
+		if err := WriteNew(path, ".a.rec.tmp-*", data); err != nil {
+			t.Fatal(err)
+		}
+		got, err := os.ReadFile(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if string(got) != string(data) {
+			t.Fatalf("read back %q, want %q", got, data)
+		}
+	}
+	left, err := filepath.Glob(filepath.Join(dir, ".a.rec.tmp-*"))
+	if err != nil || len(left) != 0 {
+		t.Fatalf("temporary files left: %v (%v)", left, err)
+	}
+	if err := WriteNew(filepath.Join(dir, "missing", "b"), "b.tmp-*", []byte("x")); err == nil || errors.Is(err, ErrDirSync) {
+		t.Fatalf("a write into a missing directory: %v, want a failure to create the file", err)
+	}
+}

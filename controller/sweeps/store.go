@@ -18,6 +18,7 @@ import (
 
 	"github.com/tankd/tankd/controller"
 	"github.com/tankd/tankd/controller/record"
+	"github.com/tankd/tankd/controller/store"
 	"github.com/tankd/tankd/controller/tune"
 )
 
@@ -282,7 +283,7 @@ func (s *Store) trimLocked() {
 		return
 	}
 	s.entries = slices.Delete(s.entries, 0, n)
-	if err := syncDir(s.dir); err != nil {
+	if err := store.SyncDir(s.dir); err != nil {
 		s.log.Warn("could not sync the directory after dropping recordings", "dir", s.dir, "err", err)
 	}
 }

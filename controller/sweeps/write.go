@@ -7,6 +7,8 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+
+	"github.com/tankd/tankd/controller/store"
 )
 
 // write stores data as the recording i (or, if that name is taken, the next free number in the
@@ -18,7 +20,9 @@ func (s *Store) write(i id, data []byte, info Info) (Info, error) {
 		i.n++
 	}
 	name := i.fileName()
-	if err := writeNew(s.dir, name, data); errors.Is(err, errDirSync) {
+	// (the temporary name is the one Open recognises as a write killed midway: tempName)
+	err := store.WriteNew(filepath.Join(s.dir, name), "."+name+".tmp-*", data)
+	if errors.Is(err, store.ErrDirSync) {
 		s.log.Warn("recording written, but it may not survive a power cut", "file", name, "err", err)
 	} else if err != nil {
 		return info, fmt.Errorf("sweeps: write %s: %w", name, err)
@@ -43,56 +47,4 @@ func (s *Store) taken(i id) bool {
 	}
 	_, err := os.Lstat(filepath.Join(s.dir, i.fileName()))
 	return !errors.Is(err, fs.ErrNotExist)
-}
-
-// writeNew writes data to dir/name crash-safely: at every moment the name is either absent or
-// the whole file. The caller has made sure that nothing has the name (one writer per directory).
-func writeNew(dir, name string, data []byte) (err error) {
-	f, err := os.CreateTemp(dir, "."+name+".tmp-*")
-	if err != nil {
-		return fmt.Errorf("create temporary file: %w", err)
-	}
-	tmp := f.Name()
-	closed := false
-	defer func() {
-		if err != nil {
-			if !closed {
-				f.Close()
-			}
-			os.Remove(tmp) // best effort: Open removes what is left
-		}
-	}()
-	if _, err := f.Write(data); err != nil {
-		return fmt.Errorf("write %s: %w", tmp, err)
-	}
-	if err := f.Sync(); err != nil {
-		return fmt.Errorf("sync %s: %w", tmp, err)
-	}
-	closed = true
-	if err := f.Close(); err != nil {
-		return fmt.Errorf("close %s: %w", tmp, err)
-	}
-	if err := os.Rename(tmp, filepath.Join(dir, name)); err != nil {
-		return fmt.Errorf("rename %s: %w", tmp, err)
-	}
-	if err := syncDir(dir); err != nil {
-		return fmt.Errorf("%w %s: %w", errDirSync, dir, err)
-	}
-	return nil
-}
-
-// errDirSync: the file is in place and whole, but the directory could not be synced: only its
-// survival across a power cut is in doubt.
-var errDirSync = errors.New("sync directory")
-
-func syncDir(dir string) error {
-	d, err := os.Open(dir)
-	if err != nil {
-		return err
-	}
-	err = d.Sync()
-	if cerr := d.Close(); err == nil {
-		err = cerr
-	}
-	return err
 }
