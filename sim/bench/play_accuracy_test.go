@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"slices"
 	"strings"
 	"testing"
 
@@ -124,24 +123,11 @@ func TestCalibratedPlayMatchesTruth(t *testing.T) {
 // first tune is a calibration), two seeds: plays to 400 steps, ten times the converter's noise,
 // directivity down to 17 dB, lost steps, the weather.
 func TestCalibratedPlayMatchesTruthHarsh(t *testing.T) {
-	k, stations, err := RangesNamed(HarshRanges)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var names []string
-	for n := range stations {
-		names = append(names, n)
-	}
-	slices.Sort(names)
 	var bad []string
 	n, total, off := 0, 0, 0
 	sum2 := 0.0
 	for _, seed := range []uint64{1, 7} {
-		scs, err := Generate(stations, names, 120, seed, Warm, k)
-		if err != nil {
-			t.Fatal(err)
-		}
-		for _, sc := range scs {
+		for _, sc := range harshScenarios(t, 120, seed, Warm) {
 			if len(sc.History) == 0 {
 				continue
 			}

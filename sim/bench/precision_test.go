@@ -2,7 +2,6 @@ package bench
 
 import (
 	"context"
-	"sort"
 	"testing"
 
 	"github.com/tankd/tankd/controller/tune"
@@ -12,20 +11,7 @@ import (
 // prepares its rig, the warm history replayed.
 func harshScenario(t *testing.T, seed uint64, m MapState, id int) (*Rig, Scenario) {
 	t.Helper()
-	knobs, st, err := RangesNamed(HarshRanges)
-	if err != nil {
-		t.Fatal(err)
-	}
-	names := make([]string, 0, len(st))
-	for n := range st {
-		names = append(names, n)
-	}
-	sort.Strings(names)
-	scs, err := Generate(st, names, id+1, seed, m, knobs)
-	if err != nil {
-		t.Fatal(err)
-	}
-	sc := scs[id]
+	sc := harshScenarios(t, id+1, seed, m)[id]
 	var r *Rig
 	if _, err := prepared(context.Background(), sc, nil, func(rig *Rig) { r = rig }); err != nil {
 		t.Fatal(err)
@@ -44,12 +30,8 @@ func TestPrecisionDownSweepPlacedByReadings(t *testing.T) {
 		id   int
 	}{{1, 768}, {7, 684}} {
 		r, sc := harshScenario(t, c.seed, Warm, c.id)
-		res, err := r.Tune(context.Background(), sc.Freq, true)
-		if err != nil {
-			t.Fatal(err)
-		}
-		best, bestSWR, _ := r.Station.Best(Hz(sc.Freq))
-		swr := r.Station.TrueSWR(Hz(sc.Freq))
+		res, swr, bestSWR := tuneJudged(t, r, sc.Freq)
+		best, _, _ := r.Station.Best(Hz(sc.Freq))
 		if res.Outcome != tune.Tuned || !(swr <= bestSWR+0.1) {
 			t.Errorf("seed %d scenario %d: %s, SWR %.3f against %.3f best at motor step %v (motor at %d)",
 				c.seed, c.id, res.Outcome, swr, bestSWR, best, r.Station.Mech.MotorPosition())
@@ -70,12 +52,8 @@ func TestPrecisionDownSweepPlacedByReadings(t *testing.T) {
 // still lets a dip stand clear of it.
 func TestPrecisionResweepNoiseAtBottom(t *testing.T) {
 	r, sc := harshScenario(t, 7, Warm, 921)
-	res, err := r.Tune(context.Background(), sc.Freq, true)
-	if err != nil {
-		t.Fatal(err)
-	}
-	_, bestSWR, _ := r.Station.Best(Hz(sc.Freq))
-	if swr := r.Station.TrueSWR(Hz(sc.Freq)); res.Outcome != tune.Tuned || !(swr <= bestSWR+0.1) {
+	res, swr, bestSWR := tuneJudged(t, r, sc.Freq)
+	if res.Outcome != tune.Tuned || !(swr <= bestSWR+0.1) {
 		t.Fatalf("%s (%v), SWR %.3f against %.3f best", res.Outcome, res.Err, swr, bestSWR)
 	}
 }
@@ -92,12 +70,8 @@ func TestPrecisionNarrowDipSweptSymmetrically(t *testing.T) {
 		id   int
 	}{{7, Cold, 789}, {1, Warm, 52}} {
 		r, sc := harshScenario(t, c.seed, c.m, c.id)
-		res, err := r.Tune(context.Background(), sc.Freq, true)
-		if err != nil {
-			t.Fatal(err)
-		}
-		_, bestSWR, _ := r.Station.Best(Hz(sc.Freq))
-		if swr := r.Station.TrueSWR(Hz(sc.Freq)); res.Outcome != tune.Tuned || !(swr <= bestSWR+0.1) {
+		res, swr, bestSWR := tuneJudged(t, r, sc.Freq)
+		if res.Outcome != tune.Tuned || !(swr <= bestSWR+0.1) {
 			t.Errorf("seed %d %s scenario %d: %s, SWR %.3f against %.3f best", c.seed, c.m, c.id, res.Outcome, swr, bestSWR)
 		}
 		if f := res.Fit; f != nil && f.HalfWidth > 7 {

@@ -42,7 +42,6 @@ func (s *staleSensor) Read(ctx context.Context) (sense.Reading, error) {
 // fit's centre (near the dip, not wherever the last sweep stopped), the tune ends not-tuned
 // with the reason, the carrier is off and the map learns nothing.
 func TestRoughSweepIsLeftAtItsCentreAndNotLearned(t *testing.T) {
-	ctx := context.Background()
 	f := 3600 * physic.KiloHertz
 	rough := 0
 	for seed := uint64(1); seed <= 12; seed++ {
@@ -57,15 +56,7 @@ func TestRoughSweepIsLeftAtItsCentreAndNotLearned(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		res, err := r.Tune(ctx, f, true)
-		if err != nil {
-			t.Fatal(err)
-		}
-		_, best, err := r.Station.Best(Hz(f))
-		if err != nil {
-			t.Fatal(err)
-		}
-		got := r.Station.TrueSWR(Hz(f))
+		res, got, best := tuneJudged(t, r, f)
 		if r.Station.Radio.Transmitting() {
 			t.Errorf("seed %d: %s, and the radio is still keyed", seed, res.Outcome)
 		}
