@@ -195,10 +195,7 @@ func requestOf(st controller.RequestStatus) requestJSON {
 		s := q.Step
 		out.Step = &s
 	}
-	if st.Result != nil {
-		r := resultOf(*st.Result)
-		out.Result = &r
-	}
+	out.Result = mapPtr(st.Result, resultOf)
 	return out
 }
 
@@ -250,15 +247,17 @@ func resultOf(r tune.Result) resultJSON {
 		s := r.Shift
 		out.ShiftSteps = &s
 	}
-	if r.Prediction != nil {
-		p := predictionOf(*r.Prediction)
-		out.Prediction = &p
-	}
-	if r.Fit != nil {
-		f := fitOf(*r.Fit)
-		out.Fit = &f
-	}
+	out.Prediction, out.Fit = mapPtr(r.Prediction, predictionOf), mapPtr(r.Fit, fitOf)
 	return out
+}
+
+// mapPtr converts what v points to by f; nil stays nil.
+func mapPtr[T, U any](v *T, f func(T) U) *U {
+	if v == nil {
+		return nil
+	}
+	u := f(*v)
+	return &u
 }
 
 type predictionJSON struct {
@@ -380,18 +379,7 @@ func tuneEventOf(ev controller.Event) tuneEventJSON {
 	case tune.KindResult:
 		out.SWR = known(e.SWR)
 	}
-	if e.Prediction != nil {
-		p := predictionOf(*e.Prediction)
-		out.Prediction = &p
-	}
-	if e.Fit != nil {
-		f := fitOf(*e.Fit)
-		out.Fit = &f
-	}
-	if e.Result != nil {
-		r := resultOf(*e.Result)
-		out.Result = &r
-	}
+	out.Prediction, out.Fit, out.Result = mapPtr(e.Prediction, predictionOf), mapPtr(e.Fit, fitOf), mapPtr(e.Result, resultOf)
 	return out
 }
 
