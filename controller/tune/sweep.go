@@ -17,8 +17,9 @@ var errNotInWindow = errors.New("dip not within the fine sweep")
 // errDoubtfulFit: a fit the tuner will not act on, let alone learn from.
 var errDoubtfulFit = fmt.Errorf("%w: doubtful", errNoFit)
 
-// errDownDoubt: a fit found sweeping down that is good enough for a sweep upward but not for
-// the play to turn its centre into final-approach coordinates (sweepParams.maxDownChi2).
+// errDownDoubt: a fit found sweeping down that is not clean enough for the play to turn its
+// centre into final-approach coordinates (χ² above sweepParams.maxDownChi2, rough, or its bottom
+// above the target): the dip is swept again upward.
 var errDownDoubt = fmt.Errorf("%w sweeping down", errDoubtfulFit)
 
 // aboveTargetError: a fit that is sound but whose bottom reads an SWR above the target. It is
@@ -117,11 +118,6 @@ func (p *op) refineAroundEffort(c coarseHit, w float64, noise noiseLevel, effort
 			// coordinates
 			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: sweeping again upward", err)})
 			pos, dir, off = pos+off, motion.Up, 0
-		case (errors.As(err, &high) || errors.As(err, &rough)) && dir == motion.Down:
-			// (a bottom above the target or a rough fit, found sweeping down: a downward sweep
-			// is kept only when it is clean, as for errDownDoubt; sweep it upward)
-			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: sweeping again upward", err)})
-			pos, dir, off = pos+off, motion.Up, 0
 		case errors.As(err, &wide) && edges < k.maxFollows:
 			edges++
 			w = math.Max(w, wide.width)
@@ -130,7 +126,7 @@ func (p *op) refineAroundEffort(c coarseHit, w float64, noise noiseLevel, effort
 		case errors.Is(err, errNoFit) && effort < k.maxEffort:
 			effort *= k.retryGrowth
 			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: sweeping again with %d× the readings", err, effort)})
-		case errors.As(err, &rough) && dir == motion.Up:
+		case errors.As(err, &rough):
 			// Still rough at the most readings: the loop is left at its centre, not tuned.
 			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: going to its centre, but not trusting it", err)})
 			f := rough.fit
@@ -140,11 +136,8 @@ func (p *op) refineAroundEffort(c coarseHit, w float64, noise noiseLevel, effort
 			// Swept with the most readings and still above the target: that is the dip. The
 			// verify decides whether the loop is tuned (settle).
 			p.t.emit(Event{Kind: KindNote, Freq: p.res.Freq, Text: fmt.Sprintf("%v: the best this loop reaches here", err)})
-			f := high.fit
-			f.Centre += off
-			f.curve.ref += off // (the curve too: the verify and the final step read it there)
-			f.viaPlay = off != 0
-			return f, nil
+			// (found sweeping up: refine turns such a fit found sweeping down into errDownDoubt)
+			return high.fit, nil
 		case errors.Is(err, errNoFit):
 			return dipFit{}, fmt.Errorf("%w: %w", ErrNoDip, err)
 		default:
@@ -274,6 +267,13 @@ func (p *op) refine(centre, u, w float64, noise noiseLevel, dir motion.Direction
 		return dipFit{}, &widerError{centre: fit.Centre, width: fit.HalfWidth, spacing: spacing, side: side}
 	}
 	if err := p.judge(fit, f.samples, w, spacing*float64(effort)); err != nil {
+		var high *aboveTargetError
+		var rough *roughError
+		if dir == motion.Down && (errors.As(err, &high) || errors.As(err, &rough)) {
+			// a downward sweep is kept only when it is clean: a bottom above the target or a
+			// rough fit is swept again upward, as one above maxDownChi2 below
+			return dipFit{}, fmt.Errorf("%w: %w", errDownDoubt, err)
+		}
 		return dipFit{}, err
 	}
 	if dir == motion.Down && fit.Chi2 > k.maxDownChi2 {
