@@ -89,23 +89,9 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 		} else {
 			t.note(p.res, "verify SWR %.2f above the %.2f the fit allows: sweeping again, more slowly", swr, limit)
 		}
-		before := p.noise
-		noise, err := p.measureNoise()
+		noise, err := p.resweepNoise()
 		if err != nil {
 			return err
-		}
-		// Measured at the dip's bottom, where the readings lie near the converter's absolute
-		// floor, their spread in ln |Γ|² can be that floor's, many times a log detector's
-		// relative noise (and a reading or two placed late, off the dip, add their own);
-		// taken for the noise off the dip, it buries the dip itself: the sweep then finds no
-		// dip deeper than the noise and leaves the loop off its resonance. The noise is kept
-		// only up to what still lets a dip absorbing half the power stand clear after the most
-		// averaging (the first measurement's where that was more): at more, no sweep could
-		// find the dip at all.
-		lim := math.Max(before.offDip(), 0.5*math.Sqrt(float64(t.par.scan.maxAveraging))/t.par.sweep.deepSigmas)
-		if noise.rel > lim || noise.abs > lim {
-			noise.rel, noise.abs = math.Min(noise.rel, lim), math.Min(noise.abs, lim)
-			p.noise = noise
 		}
 		f, err := p.refineAroundEffort(coarseHit{pos: fit.Centre, uncertainty: k.resweepSlack + w}, w, noise, k.resweepEffort, motion.Up)
 		if err != nil {
@@ -113,6 +99,29 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 		}
 		fit = f
 	}
+}
+
+// resweepNoise measures the noise again before a resweep, standing at the dip's bottom. There
+// the readings lie near the converter's absolute floor, and their spread in ln |Γ|² can be that
+// floor's, many times a log detector's relative noise (and a reading or two placed late, off
+// the dip, add their own); taken for the noise off the dip, it buries the dip itself: the sweep
+// then finds no dip deeper than the noise and leaves the loop off its resonance. The noise is
+// kept only up to what still lets a dip absorbing half the power stand clear after the most
+// averaging (the first measurement's where that was more): at more, no sweep could find the dip
+// at all.
+func (p *op) resweepNoise() (noiseLevel, error) {
+	t := p.t
+	before := p.noise
+	noise, err := p.measureNoise()
+	if err != nil {
+		return noiseLevel{}, err
+	}
+	lim := math.Max(before.offDip(), 0.5*math.Sqrt(float64(t.par.scan.maxAveraging))/t.par.sweep.deepSigmas)
+	if noise.rel > lim || noise.abs > lim {
+		noise.rel, noise.abs = math.Min(noise.rel, lim), math.Min(noise.abs, lim)
+		p.noise = noise
+	}
+	return noise, nil
 }
 
 // compareReadings is how many readings placeByReadings takes at each of the two whole steps
