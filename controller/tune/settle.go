@@ -41,15 +41,10 @@ func (p *op) settle(fit dipFit, pred Prediction) error {
 			return err
 		}
 		n := p.verifyReadings(fit, w) << attempt
-		g := 0.0
-		for range n {
-			s, _, err := p.read("verify")
-			if err != nil {
-				return err
-			}
-			g += s.Gamma2
+		g, err := p.meanGamma2(n)
+		if err != nil {
+			return err
 		}
-		g /= float64(n)
 		swr := sense.SWRFromGamma2(g)
 		limit := math.Min(t.o.TargetSWR, sense.SWRFromGamma2(p.verifyLimit(fit, w, n)))
 		p.res.SWR = swr
@@ -124,6 +119,19 @@ func (p *op) resweepNoise() (noiseLevel, error) {
 	return noise, nil
 }
 
+// meanGamma2 is the mean |Γ|² of n verify readings taken where the motor stands.
+func (p *op) meanGamma2(n int) (float64, error) {
+	g := 0.0
+	for range n {
+		s, _, err := p.read("verify")
+		if err != nil {
+			return 0, err
+		}
+		g += s.Gamma2
+	}
+	return g / float64(n), nil
+}
+
 // compareReadings is how many readings placeByReadings takes at each of the two whole steps
 // ending at the one nearest the fit's centre: none for a centre found sweeping up, none where a
 // step off the centre costs less than the SWR budget (a wide dip: a step's error loses nothing
@@ -187,25 +195,14 @@ func (p *op) placeByReadings(fit *dipFit, n int) (motion.Steps, error) {
 	if err := p.approach(lo); err != nil {
 		return 0, err
 	}
-	mean := func() (float64, error) {
-		g := 0.0
-		for range n {
-			s, _, err := p.read("verify")
-			if err != nil {
-				return 0, err
-			}
-			g += s.Gamma2
-		}
-		return g / float64(n), nil
-	}
-	g0, err := mean()
+	g0, err := p.meanGamma2(n)
 	if err != nil {
 		return 0, err
 	}
 	if err := p.travel("approach", []motion.Steps{lo + 1}, true, 0, nil); err != nil {
 		return 0, err
 	}
-	g1, err := mean()
+	g1, err := p.meanGamma2(n)
 	if err != nil {
 		return 0, err
 	}

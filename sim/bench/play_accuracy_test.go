@@ -132,8 +132,7 @@ func TestCalibratedPlayMatchesTruthHarsh(t *testing.T) {
 				continue
 			}
 			total++
-			r, err := NewRig(RigOptions{Truth: sc.Truth, Described: sc.Described, Start: sc.Start,
-				NominalBacklash: sc.Nominal, Jitter: sc.Jitter})
+			r, err := NewRig(scenarioRig(sc))
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -2,8 +2,10 @@ package bench
 
 import (
 	"context"
+	"errors"
 	"testing"
 
+	"github.com/tankd/tankd/controller/sense"
 	"github.com/tankd/tankd/controller/tune"
 )
 
@@ -77,5 +79,67 @@ func TestPrecisionNarrowDipSweptSymmetrically(t *testing.T) {
 		if f := res.Fit; f != nil && f.HalfWidth > 7 {
 			t.Errorf("seed %d %s scenario %d: half-width %.1f, not the narrow dip this test is about", c.seed, c.m, c.id, f.HalfWidth)
 		}
+	}
+}
+
+// faultySensor fails, cancels or panics at the first reading taken while the tuner approaches:
+// the still readings that place a downward sweep's fit.
+type faultySensor struct {
+	sense.Sensor
+	r      **Rig
+	fault  string
+	cancel context.CancelFunc
+	armed  bool // (not in the scenario's history)
+	fired  bool
+}
+
+func (s *faultySensor) Read(ctx context.Context) (sense.Reading, error) {
+	if s.armed && !s.fired && (*s.r).Tuner.State() == tune.Approaching {
+		s.fired = true
+		switch s.fault {
+		case "fail":
+			return sense.Reading{}, errors.New("injected: converter failed")
+		case "cancel":
+			s.cancel()
+		case "panic":
+			panic("injected: panic in the converter's driver")
+		}
+	}
+	return s.Sensor.Read(ctx)
+}
+
+// A reading that fails, a cancel or a panic in the middle of the still readings that place a
+// downward sweep's fit: the carrier is dropped, the motor stands still, and nothing is learned.
+func TestPrecisionStillReadingsInterruptedAreSafe(t *testing.T) {
+	for _, fault := range []string{"fail", "cancel", "panic"} {
+		sc := harshScenarios(t, 769, 1, Warm)[768]
+		ctx, cancel := context.WithCancel(context.Background())
+		var r *Rig
+		fs := &faultySensor{r: &r, fault: fault, cancel: cancel}
+		o := scenarioRig(sc)
+		o.WrapSensor = func(in sense.Sensor) sense.Sensor { fs.Sensor = in; return fs }
+		if _, err := preparedWith(context.Background(), sc, o, func(rig *Rig) { r = rig }); err != nil {
+			t.Fatal(err)
+		}
+		points := r.Map.Len()
+		fs.armed = true
+		res, err := r.Tune(ctx, sc.Freq, true)
+		cancel()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !fs.fired {
+			t.Fatalf("%s: the tune never took still readings while approaching (%s): the case is not exercised", fault, res.Outcome)
+		}
+		if res.Outcome == tune.Tuned {
+			t.Errorf("%s during the still readings, yet tuned", fault)
+		}
+		if r.Station.Radio.Transmitting() || r.Axis.Snapshot().Moving {
+			t.Errorf("%s: %s, transmitting %v, moving %v", fault, res.Outcome, r.Station.Radio.Transmitting(), r.Axis.Snapshot().Moving)
+		}
+		if n := r.Map.Len(); n != points {
+			t.Errorf("%s: the map went from %d to %d points", fault, points, n)
+		}
+		t.Logf("%s: %s (%v)", fault, res.Outcome, res.Err)
 	}
 }

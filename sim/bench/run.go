@@ -343,12 +343,24 @@ func runScenario(ctx context.Context, sc Scenario, stepped bool) ([]caseResult, 
 // has a switch, warm with its history. bind is handed the rig as soon as it is built, for an
 // observer that reads it.
 func prepared(ctx context.Context, sc Scenario, obs tune.Observer, bind func(*Rig)) (*Rig, error) {
+	o := scenarioRig(sc)
+	o.Observer = obs
+	return preparedWith(ctx, sc, o, bind)
+}
+
+// scenarioRig is the rig the scenario describes, as the bench builds it.
+func scenarioRig(sc Scenario) RigOptions {
 	nominal := sc.Nominal
 	if nominal == 0 {
 		nominal = DefaultKnobs().nominal("")
 	}
-	r, err := NewRig(RigOptions{Truth: sc.Truth, Described: sc.Described, Start: sc.Start, Observer: obs,
-		NominalBacklash: nominal, Jitter: sc.Jitter})
+	return RigOptions{Truth: sc.Truth, Described: sc.Described, Start: sc.Start,
+		NominalBacklash: nominal, Jitter: sc.Jitter}
+}
+
+// preparedWith is prepared on a rig built with o (the scenario's, with wrappers or an observer).
+func preparedWith(ctx context.Context, sc Scenario, o RigOptions, bind func(*Rig)) (*Rig, error) {
+	r, err := NewRig(o)
 	if err != nil {
 		return nil, err
 	}
